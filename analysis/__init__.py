@@ -1,0 +1,1 @@
+"""fringecal analysis: pure numerics on arrays and files (no hardware, no simulator)."""

@@ -1,0 +1,56 @@
+"""The narrow interfaces the run loop needs from hardware; real and simulated backends satisfy them structurally.
+
+Contract for every backend: calls that wait on hardware take a timeout and raise ``TimeoutError`` when it passes
+(retryable); a camera that is gone raises ``ConnectionError`` (fatal); ``close()`` is safe to call twice.
+"""
+
+from __future__ import annotations
+
+from typing import Protocol, runtime_checkable
+
+import numpy as np
+
+from analysis.frame import Frame
+
+
+@runtime_checkable
+class Screen(Protocol):
+    """The modulator panel as a display: shows one gray-level image at a time, 1:1 with its pixels."""
+
+    width_px: int
+    height_px: int
+    bit_depth: int
+
+    def show(self, pattern: np.ndarray) -> None:
+        """Display ``pattern`` (height x width gray levels); return once it has been handed to the panel."""
+
+    def close(self) -> None:
+        """Blank and release the display."""
+
+
+@runtime_checkable
+class Camera(Protocol):
+    """A camera that returns whole frames with metadata."""
+
+    width_px: int
+    height_px: int
+    bit_depth: int
+    exposure_s: float
+    gain_db: float
+
+    def grab(self, timeout_s: float = 1.0) -> Frame:
+        """Return the next frame exposed after the call; raise TimeoutError if none arrives in ``timeout_s``."""
+
+    def close(self) -> None:
+        """Stop acquisition and release the device."""
+
+
+@runtime_checkable
+class Clock(Protocol):
+    """Time as the bench sees it (s); the simulator's clock may run faster than the wall clock."""
+
+    def now(self) -> float:
+        """Seconds on a monotonic clock."""
+
+    def sleep(self, seconds: float) -> None:
+        """Wait ``seconds``."""

@@ -1,0 +1,1 @@
+"""fringecal simulators: the physics of a split-screen calibration bench, from gray levels to camera counts."""

@@ -1,0 +1,98 @@
+"""Thin simulated devices on one Bench: a screen and a camera that satisfy the rig's Screen and Camera protocols."""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+
+from analysis.frame import Frame
+from analysis.patterns import Rect
+from simulators.bench import Bench
+
+
+class SimScreen:
+    """The simulated panel as a display."""
+
+    def __init__(self, bench: Bench):
+        m = bench.cfg.modulator
+        self.bench = bench
+        self.width_px, self.height_px, self.bit_depth = m.width_px, m.height_px, m.bit_depth
+        self.shown = 0
+
+    def show(self, pattern: np.ndarray) -> None:
+        """Hand ``pattern`` to the simulated panel (it changes after the display latency)."""
+        self.bench.show(pattern)
+        self.shown += 1
+
+    def close(self) -> None:
+        """Blank the panel to gray 0."""
+        self.bench.show(np.zeros((self.height_px, self.width_px), np.uint16))
+
+
+class SimCamera:
+    """A free-running simulated camera: frame k exposes from k * period for ``exposure_s``.
+
+    ``grab`` returns the first frame whose exposure ends after the call, so a frame may have started before it
+    (as a streaming camera's next buffer does). Faults come from the config's ``[simulator.faults]`` rates.
+    """
+
+    def __init__(self, bench: Bench):
+        cam = bench.cfg.camera
+        self.bench = bench
+        self.width_px, self.height_px, self.bit_depth = cam.width_px, cam.height_px, cam.bit_depth
+        self._exposure_s = cam.exposure_s
+        self.gain_db = cam.gain_db
+        self.frame_rate_hz = bench.cfg.simulator.timing.frame_rate_hz
+        self.roi: Rect | None = None
+        self._last_k = -1
+        self.delivered = 0
+        self.closed = False
+
+    @property
+    def exposure_s(self) -> float:
+        """Exposure time (s)."""
+        return self._exposure_s
+
+    @exposure_s.setter
+    def exposure_s(self, value: float) -> None:
+        if not 1e-6 <= value <= 10.0:
+            raise ValueError(f"exposure_s: expected 1e-06 to 10 s, got {value!r}")
+        self._exposure_s = float(value)
+
+    def grab(self, timeout_s: float = 1.0) -> Frame:
+        """Next frame (see the class); raise TimeoutError or ConnectionError as the configured faults say."""
+        faults = self.bench.cfg.simulator.faults
+        clock, rng = self.bench.clock, self.bench.fault_rng
+        if self.closed:
+            raise ConnectionError("sim camera: grab after close")
+        if faults.die_after_frames and self.delivered >= faults.die_after_frames:
+            raise ConnectionError(f"sim camera: disconnected after {self.delivered} frames (configured fault)")
+        if faults.timeout_rate and rng.random() < faults.timeout_rate:
+            clock.sleep(timeout_s)
+            raise TimeoutError(f"sim camera: no frame within {timeout_s} s (configured fault)")
+        exposure = self._exposure_s
+        period = max(1.0 / self.frame_rate_hz, exposure)
+        k = max(math.floor((clock.now() - exposure) / period) + 1, self._last_k + 1)
+        while faults.drop_rate and rng.random() < faults.drop_rate:
+            k += 1
+        t_start = k * period
+        t_mid = t_start + exposure / 2
+        irradiance = self.bench.irradiance(t_mid, exposure, self.bench.tilt_at(t_mid))
+        electrons = self.bench.electrons(irradiance, exposure).reshape(self.height_px, self.width_px)
+        image = self.bench.sensor.expose(electrons, self.gain_db)
+        complete = True
+        if faults.corrupt_rate and rng.random() < faults.corrupt_rate:
+            image[int(rng.integers(1, self.height_px)):] = 0  # a truncated buffer: the tail never arrived
+            complete = False
+        if self.roi is not None:
+            r = self.roi
+            image = np.ascontiguousarray(image[r.y0:r.y1, r.x0:r.x1])
+        clock.wait_until(t_start + exposure)
+        self._last_k = k
+        self.delivered += 1
+        return Frame(image, t_mid, exposure, self.gain_db, self.bit_depth, k, complete)
+
+    def close(self) -> None:
+        """Stop the simulated camera; later grabs raise ConnectionError."""
+        self.closed = True
