@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import argparse
 import csv
+import importlib
 import sys
 from pathlib import Path
 
@@ -31,7 +32,10 @@ examples:
 """
 
 
-def _config(args) -> Config:
+COMMAND_MODULES: tuple[str, ...] = ()
+
+
+def load_bench_config(args) -> Config:
     if args.config is None:
         if not getattr(args, "sim", True):
             raise UsageError("--config: a bench config is needed without --sim (start from configs/bench-template.toml)")
@@ -40,7 +44,7 @@ def _config(args) -> Config:
     return load_config(args.config)
 
 
-def _writable(path: str, what: str) -> Path:
+def writable(path: str, what: str) -> Path:
     out = Path(path)
     if out.parent and not out.parent.exists():
         raise UsageError(f"{what}: folder {out.parent} does not exist")
@@ -57,12 +61,12 @@ def cmd_preview(args) -> int:
 
     if not args.sim:
         raise UsageError("preview: live hardware is not wired into fringecal yet; use --sim")
-    cfg = _config(args)
+    cfg = load_bench_config(args)
     if not 0 <= args.mirror_gray <= cfg.gray_max:
         raise UsageError(f"--mirror-gray: expected a gray level in [0, {cfg.gray_max}], got {args.mirror_gray}")
     if Path(args.out).suffix.lower() != ".png":
         raise UsageError(f"--out: expected a .png file name, got {args.out}")
-    out = _writable(args.out, "--out")
+    out = writable(args.out, "--out")
     bench = Bench(cfg)
     screen, camera = SimScreen(bench), SimCamera(bench)
     m, p = cfg.modulator, cfg.pattern
@@ -74,7 +78,7 @@ def cmd_preview(args) -> int:
         raise UsageError(f"--out: could not write {out}")
     if args.view:
         view = cv2.normalize(frame.image.astype(np.float32), None, 0, 255, cv2.NORM_MINMAX).astype(np.uint8)
-        cv2.imwrite(str(_writable(args.view, "--view")), view)
+        cv2.imwrite(str(writable(args.view, "--view")), view)
     peak = int(frame.image.max())
     print(f"wrote {out}: {frame.image.shape[1]}x{frame.image.shape[0]} px, {cfg.camera.bit_depth}-bit counts in a "
           f"16-bit PNG; mirror gray {args.mirror_gray}, grating {p.grating_low}/{p.grating_high}, "
@@ -89,8 +93,8 @@ def cmd_sim_truth(args) -> int:
     """Write the simulated panel's true phase curve as gray,phase_rad."""
     from simulators.bench import Bench
 
-    cfg = _config(args)
-    out = _writable(args.out, "--out")
+    cfg = load_bench_config(args)
+    out = writable(args.out, "--out")
     grays, phase = Bench(cfg).true_curve()
     with out.open("w", newline="") as fh:
         writer = csv.writer(fh)
@@ -122,6 +126,10 @@ def build_parser() -> argparse.ArgumentParser:
 
     p = command("sim-truth", cmd_sim_truth, "write the simulated panel's true phase curve (gray,phase_rad)")
     p.add_argument("--out", required=True, metavar="truth.csv", help="CSV file to write")
+
+    # Commands kept in modules of their own: each has register(command) adding its subparser.
+    for module in COMMAND_MODULES:
+        importlib.import_module(module).register(command)
     return parser
 
 
