@@ -173,13 +173,17 @@ class Bench:
         starts: list[tuple[int, float]] = []
         for code in present:
             label, gray = divmod(int(code), n_gray)
-            start = old.regions[label].retardance(t_c, tau)
+            previous = old.regions[label]
+            if t_c - previous.t_change > SETTLED_TAU * tau:
+                start = previous.target_rad
+            else:
+                start = previous.retardance(t_c, tau)
             target = float(self.response.retardance_rad(gray))
-            settled = abs(start - target) < 1e-9 or t_c - old.regions[label].t_change > SETTLED_TAU * tau
-            group = (gray,) if settled else (gray, label)
+            # regions that need no transient merge by gray, so labels stay few over a long sweep
+            group = (gray,) if abs(start - target) < 1e-9 else (gray, label)
             if group not in groups:
                 groups[group] = len(groups)
-                starts.append((gray, target if settled else start))
+                starts.append((gray, start))
             lut[code] = groups[group]
         labels = lut[combined]
         regions = []

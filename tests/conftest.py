@@ -1,0 +1,51 @@
+"""Shared fixtures: configs for the demo bench and for a small, fast bench with the same physics."""
+
+import os
+
+os.environ.setdefault("MPLBACKEND", "Agg")
+
+import numpy as np
+import pytest
+
+from analysis.config import load_config, replace
+from analysis.patterns import layout_of, split_screen
+from configs import DEFAULT_SIM
+
+SMALL = {
+    "modulator.width_px": 400, "modulator.height_px": 300,
+    "camera.width_px": 256, "camera.height_px": 200,
+    "geometry.distance_mm": 40.0, "geometry.camera_offset_mm": [-0.42, 0.0],
+    "simulator.beam.radius_mm": 1.0, "laser.power_mw": 0.25,
+}
+
+
+@pytest.fixture(scope="session")
+def demo_cfg():
+    """The shipped default simulator config (1064 nm tweezers bench)."""
+    return load_config(DEFAULT_SIM)
+
+
+@pytest.fixture(scope="session")
+def small_cfg(demo_cfg):
+    """A 400x300 panel seen by a 256x200 camera at 40 mm: same optics, frames in milliseconds."""
+    return replace(demo_cfg, **SMALL)
+
+
+def split_for(cfg, mirror_gray, low=None, high=None):
+    """The config's split-screen pattern at ``mirror_gray`` (grating pair from the config unless given)."""
+    p, m = cfg.pattern, cfg.modulator
+    return split_screen(m.width_px, m.height_px, mirror_gray, p.grating_low if low is None else low,
+                        p.grating_high if high is None else high, layout_of(p), m.bit_depth)
+
+
+def band_phasor(image, cfg, cols):
+    """Complex fringe amplitude at the grating's carrier over camera columns ``cols`` (Hann-windowed lock-in).
+
+    The carrier on the sensor is the grating period on the panel (common practice: two beams at angle theta make
+    fringes of period lambda / sin(theta), which equals the grating period for its first order).
+    """
+    period_cam_px = cfg.pattern.grating_period_px * cfg.modulator.pitch_um / cfg.camera.pitch_um
+    x = np.arange(cols.start, cols.stop)
+    window = np.hanning(x.size)
+    profile = np.asarray(image, float)[:, cols].mean(axis=0)
+    return np.sum(window * profile * np.exp(-2j * np.pi * x / period_cam_px))

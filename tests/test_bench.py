@@ -1,0 +1,216 @@
+"""The simulated bench end to end: superposition shortcut, fringes, transients, polarisation, disturbances, faults."""
+
+import math
+import time
+
+import numpy as np
+import pytest
+from conftest import band_phasor, split_for
+
+from analysis.config import replace
+from rig.protocols import Camera, Clock, Screen
+from simulators.bench import Bench
+from simulators.devices import SimCamera, SimScreen
+
+BAND = slice(60, 200)  # camera columns inside the band of the small bench
+
+
+def settled_irradiance(bench, pattern, settle_s=0.2):
+    bench.show(pattern)
+    bench.clock.sleep(settle_s)
+    cam = bench.cfg.camera
+    return bench.irradiance(bench.clock.now(), cam.exposure_s).reshape(cam.height_px, cam.width_px)
+
+
+def wrap(a):
+    return (a + np.pi) % (2 * np.pi) - np.pi
+
+
+@pytest.mark.parametrize("extra", [{}, {"simulator.response.crosstalk_px": 1.5,
+                                        "simulator.response.polarization_deg": 20.0,
+                                        "simulator.response.reflectance_droop": 0.05}])
+def test_superposition_shortcut_equals_full_propagation(small_cfg, extra):
+    """The camera field is linear in the panel field, so region-by-region superposition must equal propagating
+    the whole panel field (to float32 rounding)."""
+    bench = Bench(replace(small_cfg, **extra))
+    for gray in (0, 37, 128, 201):
+        shortcut = settled_irradiance(bench, split_for(small_cfg, gray)).ravel()
+        full = bench.irradiance_full(bench.clock.now(), small_cfg.camera.exposure_s)
+        assert np.max(np.abs(shortcut - full)) < 1e-4 * full.max()
+
+
+def test_shortcut_with_cell_gap_variation_stays_within_its_expansion_error(small_cfg):
+    cfg = replace(small_cfg, **{"simulator.response.thickness_variation": 0.03})
+    bench = Bench(cfg)
+    for gray in (0, 150, 255):
+        shortcut = settled_irradiance(bench, split_for(cfg, gray)).ravel()
+        full = bench.irradiance_full(bench.clock.now())
+        assert np.max(np.abs(shortcut - full)) < 2e-3 * full.max()
+
+
+def test_fringe_period_is_the_grating_period_for_every_mirror_gray(small_cfg):
+    """Two plane waves at angle theta = asin(lambda / period) make fringes of period lambda / sin(theta), i.e. the
+    grating period itself, whatever the mirror's phase (common practice)."""
+    bench = Bench(small_cfg)
+    expected_px = small_cfg.pattern.grating_period_px * small_cfg.modulator.pitch_um / small_cfg.camera.pitch_um
+    periods = []
+    for gray in (0, 90, 180):
+        profile = settled_irradiance(bench, split_for(small_cfg, gray))[:, BAND].mean(axis=0)
+        n = 1 << 16
+        spec = np.abs(np.fft.rfft((profile - profile.mean()) * np.hanning(profile.size), n))
+        periods.append(n / (np.argmax(spec[10:]) + 10))
+    assert periods == pytest.approx([expected_px] * 3, rel=0.01)
+    assert max(periods) - min(periods) < 0.002 * expected_px
+
+
+def test_fringe_phase_follows_the_true_curve(small_cfg):
+    """The band's fringe phase, relative to gray 0, moves by the panel's true phase (up to the sign set by the
+    geometry): the simulator's images agree with the truth it reports."""
+    cfg = replace(small_cfg, **{"simulator.timing.vibration_urad": 0.0})
+    bench = Bench(cfg)
+    grays, truth = bench.true_curve()
+    ref = band_phasor(settled_irradiance(bench, split_for(cfg, 0)), cfg, BAND)
+    levels = [16, 64, 100, 150, 220, 255]
+    measured = np.array([np.angle(band_phasor(settled_irradiance(bench, split_for(cfg, g)), cfg, BAND) / ref)
+                         for g in levels])
+    sign = np.sign(np.mean(np.sin(measured)))
+    assert np.max(np.abs(wrap(sign * measured - truth[levels]))) < 0.02
+
+
+def test_liquid_crystal_settles_with_its_time_constant(small_cfg):
+    """A frame taken too soon after a change carries a phase between the old and new values."""
+    cfg = replace(small_cfg, **{"simulator.timing.lc_tau_s": 0.01, "simulator.timing.display_latency_s": 0.0,
+                                "simulator.timing.vibration_urad": 0.0})
+    bench = Bench(cfg)
+    settled_irradiance(bench, split_for(cfg, 0))
+    bench.show(split_for(cfg, 80))
+    t0 = bench.clock.now()
+    mirror = [r for r in bench.state_at(t0).regions if r.gray == 80][0]
+    assert mirror.retardance(t0 + 0.01, 0.01) - mirror.target_rad == pytest.approx(
+        (mirror.start_rad - mirror.target_rad) * math.exp(-1))
+    early = band_phasor(bench.irradiance(t0 + 0.005, 0.0).reshape(200, 256), cfg, BAND)
+    late = band_phasor(bench.irradiance(t0 + 0.5, 0.0).reshape(200, 256), cfg, BAND)
+    assert abs(wrap(np.angle(early / late))) > 0.3
+
+
+def test_contrast_falls_with_polarisation_off_the_director(small_cfg):
+    """Only the field component along the director is modulated: the fringe term scales with cos^2 of the angle,
+    the rest reflects as from a mirror and only adds background."""
+    amps = {}
+    for angle in (0.0, 60.0):
+        cfg = replace(small_cfg, **{"simulator.response.polarization_deg": angle,
+                                    "simulator.noise.stray_light": 0.0})
+        amps[angle] = abs(band_phasor(settled_irradiance(Bench(cfg), split_for(cfg, 50)), cfg, BAND))
+    assert amps[60.0] / amps[0.0] == pytest.approx(np.cos(np.deg2rad(60.0)) ** 2, rel=0.01)
+
+
+def test_panel_tilt_shifts_the_fringes_by_twice_k_times_the_lever_arm(small_cfg):
+    cfg = replace(small_cfg, **{"simulator.timing.vibration_urad": 0.0})
+    bench = Bench(cfg)
+    settled_irradiance(bench, split_for(cfg, 40))
+    state = bench.state_at(bench.clock.now())
+    t = bench.clock.now()
+    base = band_phasor(bench.irradiance(t, 0.0).reshape(200, 256), cfg, BAND)
+    tilted = band_phasor(bench.irradiance(t, 0.0, tilt_urad=(2.0, 0.0)).reshape(200, 256), cfg, BAND)
+    cx = {r.gray: bench._basis[r.key].centroid_um[0] for r in state.regions}
+    grating_cx = (cx[cfg.pattern.grating_low] + cx[cfg.pattern.grating_high]) / 2
+    expected = 4 * np.pi / bench.wavelength_um * 2e-6 * (cx[40] - grating_cx)
+    assert abs(wrap(np.angle(tilted / base))) == pytest.approx(abs(expected), rel=0.05)
+
+
+def test_flicker_ripples_the_phase_at_its_frequency(small_cfg):
+    cfg = replace(small_cfg, **{"simulator.timing.flicker_rad": 0.2, "simulator.timing.flicker_hz": 240.0})
+    bench = Bench(cfg)
+    settled_irradiance(bench, split_for(cfg, 100))
+    state = bench.state_at(bench.clock.now())
+    t = bench.clock.now() + np.arange(512) / 2000.0
+    mirror = [i for i, r in enumerate(state.regions) if r.gray == 100][0]
+    trace = np.array([bench.region_phases(state, ti, 0.0)[mirror] for ti in t])
+    spec = np.abs(np.fft.rfft(trace - trace.mean()))
+    assert np.fft.rfftfreq(t.size, 1 / 2000.0)[np.argmax(spec)] == pytest.approx(240.0, abs=2000.0 / 512)
+    assert np.ptp(trace) == pytest.approx(0.4 * bench.response.slope_weight(100), rel=0.02)
+
+
+def test_phase_range_is_larger_at_780_than_at_1064_nm(demo_cfg):
+    from configs import HERE
+    from analysis.config import load_config
+    short = Bench(load_config(HERE / "tweezers-780.toml")).true_curve()[1]
+    assert short[-1] > 1.3 * Bench(demo_cfg).true_curve()[1][-1]
+
+
+def test_devices_satisfy_the_rig_protocols(small_cfg):
+    bench = Bench(small_cfg)
+    assert isinstance(SimScreen(bench), Screen) and isinstance(SimCamera(bench), Camera)
+    assert isinstance(bench.clock, Clock)
+
+
+def test_camera_frames_are_spaced_by_the_frame_period_and_carry_metadata(small_cfg):
+    bench = Bench(small_cfg)
+    cam = SimCamera(bench)
+    frames = [cam.grab() for _ in range(5)]
+    stamps = np.diff([f.timestamp_s for f in frames])
+    assert stamps == pytest.approx([1 / small_cfg.simulator.timing.frame_rate_hz] * 4)
+    assert [f.sequence for f in frames] == list(range(frames[0].sequence, frames[0].sequence + 5))
+    f = frames[-1]
+    assert f.image.dtype == np.uint16 and f.image.shape == (200, 256) and f.bit_depth == 12 and f.complete
+    assert f.exposure_s == small_cfg.camera.exposure_s
+    with pytest.raises(ValueError, match="exposure_s"):
+        cam.exposure_s = 0.0
+
+
+def test_a_frame_that_started_before_the_change_is_not_yet_the_new_pattern(small_cfg):
+    cfg = replace(small_cfg, **{"simulator.timing.vibration_urad": 0.0, "simulator.noise.read_noise_e": 0.0})
+    bench = Bench(cfg)
+    screen, cam = SimScreen(bench), SimCamera(bench)
+    screen.show(split_for(cfg, 0))
+    bench.clock.sleep(0.2)
+    before = cam.grab()
+    screen.show(split_for(cfg, 80))
+    stale = cam.grab()  # the camera's next frame: exposed before the panel had responded
+    assert stale.timestamp_s - stale.exposure_s / 2 < bench.clock.now()
+    bench.clock.sleep(0.2)
+    after = cam.grab()
+    p0, ps, p1 = (band_phasor(f.image, cfg, BAND) for f in (before, stale, after))
+    assert abs(wrap(np.angle(ps / p0))) < 0.05 and abs(wrap(np.angle(p1 / p0))) > 0.5
+
+
+def test_configured_faults_happen_at_their_rates(small_cfg):
+    cfg = replace(small_cfg, **{"simulator.faults.timeout_rate": 0.2, "simulator.faults.corrupt_rate": 0.1,
+                                "simulator.faults.drop_rate": 0.1})
+    cam = SimCamera(Bench(cfg))
+    timeouts, frames = 0, []
+    for _ in range(400):
+        try:
+            frames.append(cam.grab(timeout_s=0.5))
+        except TimeoutError:
+            timeouts += 1
+    assert timeouts / 400 == pytest.approx(0.2, abs=0.06)
+    incomplete = [f for f in frames if not f.complete]
+    assert len(incomplete) / len(frames) == pytest.approx(0.1, abs=0.05)
+    assert all(np.any(f.image[-1] == 0) for f in incomplete)
+    gaps = np.diff([f.sequence for f in frames])
+    assert np.all(gaps >= 1) and np.mean(gaps > 1) > 0.05
+
+
+def test_camera_that_dies_stays_dead(small_cfg):
+    cam = SimCamera(Bench(replace(small_cfg, **{"simulator.faults.die_after_frames": 3})))
+    for _ in range(3):
+        cam.grab()
+    for _ in range(2):
+        with pytest.raises(ConnectionError, match="after 3 frames"):
+            cam.grab()
+
+
+def test_realtime_mode_sleeps_like_hardware(small_cfg):
+    cfg = replace(small_cfg, **{"simulator.timing.realtime": True, "simulator.timing.frame_rate_hz": 50.0})
+    cam = SimCamera(Bench(cfg))
+    cam.grab()
+    t0 = time.monotonic()
+    for _ in range(5):
+        cam.grab()
+    assert time.monotonic() - t0 >= 5 / 50.0 - 0.005
+
+
+def test_same_seed_same_frames(small_cfg):
+    a, b = (SimCamera(Bench(small_cfg)).grab().image for _ in range(2))
+    assert np.array_equal(a, b)
