@@ -214,3 +214,31 @@ def test_realtime_mode_sleeps_like_hardware(small_cfg):
 def test_same_seed_same_frames(small_cfg):
     a, b = (SimCamera(Bench(small_cfg)).grab().image for _ in range(2))
     assert np.array_equal(a, b)
+
+
+def test_camera_roi_crops_the_sensor(small_cfg):
+    from analysis.patterns import Rect
+    bench = Bench(replace(small_cfg, **{"simulator.timing.vibration_urad": 0.0}))
+    cam = SimCamera(bench)
+    full = cam.grab()
+    cam.roi = Rect(10, 110, 20, 70)
+    bench2 = Bench(replace(small_cfg, **{"simulator.timing.vibration_urad": 0.0}))
+    cam2 = SimCamera(bench2)
+    cam2.roi = Rect(10, 110, 20, 70)
+    crop = cam2.grab()
+    assert crop.image.shape == (50, 100)
+    assert np.array_equal(crop.image, full.image[20:70, 10:110])
+
+
+def test_horizontal_split_gives_horizontal_fringes(small_cfg):
+    cfg = replace(small_cfg, **{"pattern.split": "horizontal", "pattern.grating_side": "bottom",
+                                "geometry.camera_offset_mm": [0.0, -0.42]})
+    image = settled_irradiance(Bench(cfg), split_for(cfg, 30))
+    period = cfg.pattern.grating_period_px * cfg.modulator.pitch_um / cfg.camera.pitch_um
+    rows = np.arange(40, 160)
+    profile_y = image[rows, :].mean(axis=1)
+    profile_x = image[100, :]
+    along_y = abs(np.sum(np.hanning(rows.size) * profile_y * np.exp(-2j * np.pi * rows / period)))
+    cols = np.arange(profile_x.size)
+    along_x = abs(np.sum(np.hanning(cols.size) * profile_x * np.exp(-2j * np.pi * cols / period)))
+    assert along_y > 20 * along_x * rows.size / cols.size
