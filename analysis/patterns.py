@@ -145,12 +145,16 @@ def vortex_phase(width: int, height: int, charge: int) -> np.ndarray:
     return np.mod(charge * np.arctan2(y, x), 2 * np.pi)
 
 
-def phase_to_gray(phase_rad: np.ndarray, bit_depth: int = 8, lut: np.ndarray | None = None) -> np.ndarray:
+def phase_to_gray(phase_rad: np.ndarray, bit_depth: int = 8, lut: np.ndarray | None = None,
+                  lut_range_rad: float = 2 * np.pi) -> np.ndarray:
     """Turn phases (rad, wrapped to [0, 2pi)) into gray levels through a lookup table.
 
-    ``lut[i]`` is the gray that delays ``2 pi i / len(lut)``; without one the identity table (gray proportional to
-    phase over all levels) is used.
+    ``lut[i]`` is the gray that delays ``lut_range_rad * i / len(lut)``; without one the identity table (gray
+    proportional to phase over all levels) is used. A table spanning less than 2 pi gives its last gray to the
+    phases beyond its range, the nearest it can make.
     """
+    if not lut_range_rad > 0:
+        raise ValueError(f"lut_range_rad: expected a phase range > 0 rad, got {lut_range_rad!r}")
     n_levels = 2**bit_depth
     if lut is None:
         lut = np.arange(n_levels)
@@ -159,6 +163,6 @@ def phase_to_gray(phase_rad: np.ndarray, bit_depth: int = 8, lut: np.ndarray | N
         raise ValueError(f"lut: expected a 1-D table of at least 2 gray levels, got shape {lut.shape}")
     if lut.min() < 0 or lut.max() >= n_levels:
         raise ValueError(f"lut: expected gray levels in [0, {n_levels - 1}], got {lut.min()}..{lut.max()}")
-    frac = np.mod(np.asarray(phase_rad, dtype=float), 2 * np.pi) / (2 * np.pi)
+    frac = np.mod(np.asarray(phase_rad, dtype=float), 2 * np.pi) / lut_range_rad
     index = np.minimum((frac * lut.size).astype(np.int64), lut.size - 1)
     return lut[index].astype(dtype_for(bit_depth))
