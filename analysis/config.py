@@ -79,7 +79,7 @@ class Pattern:
 class Sweep:
     levels: str | tuple[int, ...] = spec("all", doc="'all', or a list of gray levels")
     frames_per_level: int = spec(2, lo=1, hi=1000, doc="frames grabbed per gray level")
-    settle_s: float = spec(0.05, lo=0.0, hi=60.0, doc="wait after a pattern change")
+    settle_s: float = spec(0.1, lo=0.0, hi=60.0, doc="wait after a pattern change")
     reference_gray: int = spec(0, lo=0, hi=4095, doc="gray re-measured for drift correction")
     reference_every: int = spec(16, lo=0, hi=100000, doc="levels between drift references (0: none)")
     order: str = spec("ascending", choices=("ascending", "shuffled", "up-down"), doc="order of the levels")
@@ -129,7 +129,7 @@ class Noise:
 @dataclass(frozen=True)
 class Timing:
     realtime: bool = spec(False, doc="sleep like hardware (true) or advance a simulated clock (false)")
-    lc_tau_s: float = spec(0.006, lo=0.0, hi=10.0, doc="liquid-crystal response time constant")
+    lc_tau_s: float = spec(0.005, lo=0.0, hi=10.0, doc="liquid-crystal response time constant")
     display_latency_s: float = spec(0.017, lo=0.0, hi=1.0, doc="delay from show() to the panel changing")
     frame_rate_hz: float = spec(100.0, lo=0.1, hi=100000.0, doc="camera frame rate")
     vibration_urad: float = spec(0.02, lo=0.0, hi=1000.0, doc="rms panel tilt jitter, frame to frame")

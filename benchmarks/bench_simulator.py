@@ -32,7 +32,7 @@ def run():
     exposure = cfg.camera.exposure_s
     times = iter(np.arange(1e6) * 1e-3 + 1.0)
 
-    shortcut = rate(lambda: bench.irradiance(next(times), exposure, bench.tilt_at(0.0)))
+    shortcut = rate(lambda: bench.irradiance(next(times), exposure, bench.tilt_at(0.0, 0)))
     full = rate(lambda: bench.irradiance_full(bench.clock.now(), exposure), seconds=4.0)
     shows = iter(patterns * 100)
     show = rate(lambda: bench.show(next(shows)))

@@ -39,19 +39,20 @@ TAYLOR_TERMS = 4
 
 
 class SimClock:
-    """Bench time (s). Fast mode advances only when told to; real-time mode follows the wall clock."""
+    """Bench time (s). Fast mode advances only when told to, in whole nanoseconds so that the same sequence of
+    waits always lands on the same instants; real-time mode follows the wall clock."""
 
-    def __init__(self, realtime: bool = False):
+    def __init__(self, realtime: bool = False, start_s: float = 0.0):
         self.realtime = realtime
-        self._t0 = time.monotonic()
-        self._t = 0.0
+        self._t0 = time.monotonic() - start_s
+        self._ns = round(start_s * 1e9)
         self._lock = threading.Lock()
 
     def now(self) -> float:
-        """Seconds since the bench was made."""
+        """Seconds since the bench's time zero."""
         if self.realtime:
             return time.monotonic() - self._t0
-        return self._t
+        return self._ns / 1e9
 
     def sleep(self, seconds: float) -> None:
         """Wait ``seconds`` (real-time) or jump the clock forward (fast)."""
@@ -61,11 +62,15 @@ class SimClock:
             time.sleep(seconds)
         else:
             with self._lock:
-                self._t += seconds
+                self._ns += round(seconds * 1e9)
 
     def wait_until(self, t: float) -> None:
         """Return once the clock reads at least ``t``."""
-        self.sleep(t - self.now())
+        if self.realtime:
+            self.sleep(t - self.now())
+        else:
+            with self._lock:
+                self._ns = max(self._ns, round(t * 1e9))
 
 
 @dataclass(frozen=True)
@@ -80,9 +85,9 @@ class Region:
 
     def retardance(self, t: float, tau_s: float) -> float:
         """Retardance (rad) at time ``t``: exponential approach from start to target."""
-        if t <= self.t_change or self.start_rad == self.target_rad:
-            return self.start_rad if t <= self.t_change else self.target_rad
-        if tau_s == 0:
+        if t <= self.t_change:
+            return self.start_rad
+        if self.start_rad == self.target_rad or t - self.t_change > SETTLED_TAU * tau_s:
             return self.target_rad
         return self.target_rad + (self.start_rad - self.target_rad) * math.exp(-(t - self.t_change) / tau_s)
 
@@ -106,19 +111,20 @@ class RegionBasis:
 
 
 class Bench:
-    """The whole simulated bench for one config: panel, optics, disturbances, sensor and clock."""
+    """The whole simulated bench for one config: panel, optics, disturbances, sensor and clock.
 
-    def __init__(self, cfg: Config):
+    ``start_s`` sets the clock's first reading, so a resumed run can continue the time line it was on: noise and
+    vibration are keyed by frame number (time / frame period) and reproduce exactly.
+    """
+
+    def __init__(self, cfg: Config, start_s: float = 0.0):
         self.cfg = cfg
         sim, m, cam, geo = cfg.simulator, cfg.modulator, cfg.camera, cfg.geometry
-        self.clock = SimClock(sim.timing.realtime)
+        self.clock = SimClock(sim.timing.realtime, start_s)
         self.response = PanelResponse(sim.response, m.bit_depth, cfg.laser.wavelength_nm, geo.incidence_deg)
         self.wavelength_um = cfg.laser.wavelength_nm * 1e-3
-        root = np.random.SeedSequence(sim.seed)
-        seeds = root.spawn(3)
-        self.sensor = Sensor(sim.noise, cam.bit_depth, seeds[0])
-        self.rng = np.random.default_rng(seeds[1])        # vibration
-        self.fault_rng = np.random.default_rng(seeds[2])  # camera faults
+        self.sensor = Sensor(sim.noise, cam.bit_depth, sim.seed)
+        self.fault_rng = np.random.default_rng([sim.seed, 1])
         self.flicker_offset = 2 * np.pi * np.random.default_rng(sim.seed).random()
 
         self.beam = beam_field(m.width_px, m.height_px, m.pitch_um, sim.beam, self.wavelength_um,
@@ -173,11 +179,7 @@ class Bench:
         starts: list[tuple[int, float]] = []
         for code in present:
             label, gray = divmod(int(code), n_gray)
-            previous = old.regions[label]
-            if t_c - previous.t_change > SETTLED_TAU * tau:
-                start = previous.target_rad
-            else:
-                start = previous.retardance(t_c, tau)
+            start = old.regions[label].retardance(t_c, tau)
             target = float(self.response.retardance_rad(gray))
             # regions that need no transient merge by gray, so labels stay few over a long sweep
             group = (gray,) if abs(start - target) < 1e-9 else (gray, label)
@@ -186,12 +188,18 @@ class Bench:
                 starts.append((gray, start))
             lut[code] = groups[group]
         labels = lut[combined]
+        masks = [labels == index for index in range(len(starts))]
+        keys = [_mask_key(mask) for mask in masks]
+        # order regions by pixel set so that the same pattern always sums its fields in the same order
+        order = sorted(range(len(starts)), key=lambda i: (keys[i], starts[i]))
+        relabel = np.empty(len(starts), np.int32)
+        relabel[order] = np.arange(len(starts), dtype=np.int32)
         regions = []
-        for index, (gray, start) in enumerate(starts):
-            mask = labels == index
-            regions.append(Region(gray, start, float(self.response.retardance_rad(gray)), t_c, _mask_key(mask)))
-            self._ensure_basis(regions[-1].key, mask)
-        return PanelState(t_c, labels, tuple(regions), pattern.copy())
+        for index in order:
+            gray, start = starts[index]
+            regions.append(Region(gray, start, float(self.response.retardance_rad(gray)), t_c, keys[index]))
+            self._ensure_basis(keys[index], masks[index])
+        return PanelState(t_c, relabel[labels], tuple(regions), pattern.copy())
 
     def state_at(self, t: float) -> PanelState:
         """The panel state in force at time ``t``."""
@@ -313,11 +321,12 @@ class Bench:
                  * 10 ** (-n.optical_density) * n.quantum_efficiency)
         return irradiance * np.float32(scale)
 
-    def tilt_at(self, t: float) -> tuple[float, float]:
-        """Panel tilt (urad, x and y) for a frame at ``t``: drift plus fresh vibration jitter."""
+    def tilt_at(self, t: float, key: int) -> tuple[float, float]:
+        """Panel tilt (urad, x and y) for frame ``key`` at ``t``: drift plus that frame's vibration jitter."""
         timing = self.cfg.simulator.timing
         drift = timing.drift_urad_per_s * t if math.isfinite(t) else 0.0
-        jitter = self.rng.normal(0.0, timing.vibration_urad, 2) if timing.vibration_urad else (0.0, 0.0)
+        jitter = (np.random.default_rng([self.cfg.simulator.seed, 2, key]).normal(0.0, timing.vibration_urad, 2)
+                  if timing.vibration_urad else (0.0, 0.0))
         return drift + float(jitter[0]), drift + float(jitter[1])
 
     def true_curve(self) -> tuple[np.ndarray, np.ndarray]:

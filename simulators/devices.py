@@ -2,8 +2,6 @@
 
 from __future__ import annotations
 
-import math
-
 import numpy as np
 
 from analysis.frame import Frame
@@ -72,15 +70,16 @@ class SimCamera:
             clock.sleep(timeout_s)
             raise TimeoutError(f"sim camera: no frame within {timeout_s} s (configured fault)")
         exposure = self._exposure_s
-        period = max(1.0 / self.frame_rate_hz, exposure)
-        k = max(math.floor((clock.now() - exposure) / period) + 1, self._last_k + 1)
+        # whole nanoseconds, so that frame numbers depend only on the clock reading, not on float rounding
+        exposure_ns, period_ns = round(exposure * 1e9), round(max(1.0 / self.frame_rate_hz, exposure) * 1e9)
+        k = max((round(clock.now() * 1e9) - exposure_ns) // period_ns + 1, self._last_k + 1)
         while faults.drop_rate and rng.random() < faults.drop_rate:
             k += 1
-        t_start = k * period
-        t_mid = t_start + exposure / 2
-        irradiance = self.bench.irradiance(t_mid, exposure, self.bench.tilt_at(t_mid))
+        t_start = k * period_ns / 1e9
+        t_mid = (k * period_ns + exposure_ns / 2) / 1e9
+        irradiance = self.bench.irradiance(t_mid, exposure, self.bench.tilt_at(t_mid, k))
         electrons = self.bench.electrons(irradiance, exposure).reshape(self.height_px, self.width_px)
-        image = self.bench.sensor.expose(electrons, self.gain_db)
+        image = self.bench.sensor.expose(electrons, self.gain_db, key=k)
         complete = True
         if faults.corrupt_rate and rng.random() < faults.corrupt_rate:
             image[int(rng.integers(1, self.height_px)):] = 0  # a truncated buffer: the tail never arrived

@@ -5,8 +5,9 @@ so that the temporal variance (ADU^2) is mean_above_offset / K + (read_noise_e /
 
 Noise draws: where a pixel expects at least ``EXACT_BELOW_E`` electrons, shot and read noise are drawn together as
 one normal variate of variance mean + read^2 (the normal approximation to Poisson, whose skewness 1/sqrt(mean) is
-below 0.16 there); below it the shot noise is an exact Poisson draw. Normal variates are drawn in two threads from
-two generators seeded from the bench seed, so frames stay reproducible.
+below 0.16 there); below it the shot noise is an exact Poisson draw. Each frame's draws come from generators seeded by (bench seed,
+frame key), so a frame is reproducible on its own (a resumed simulated run sees the noise an uninterrupted one saw);
+normal variates are drawn in two threads.
 """
 
 from __future__ import annotations
@@ -21,42 +22,45 @@ EXACT_BELOW_E = 40.0
 class Sensor:
     """Turns expected photo-electrons into a uint16 frame; ``noise`` is a config ``[simulator.noise]`` section."""
 
-    def __init__(self, noise, bit_depth: int, seed_seq: np.random.SeedSequence):
+    def __init__(self, noise, bit_depth: int, seed: int):
         self.noise = noise
         self.bit_depth = bit_depth
         self.full_scale = 2**bit_depth - 1
-        seeds = seed_seq.spawn(3)
-        self._normal = [np.random.Generator(np.random.SFC64(s)) for s in seeds[:2]]
-        self._poisson = np.random.Generator(np.random.SFC64(seeds[2]))
+        self.seed = seed
         self._pool = ThreadPoolExecutor(max_workers=2, thread_name_prefix="sensor-noise")
 
     def e_per_adu(self, gain_db: float) -> float:
         """Conversion gain K (e-/ADU) at analogue gain ``gain_db``."""
         return self.noise.e_per_adu / 10 ** (gain_db / 20)
 
-    def _standard_normal(self, n: int) -> np.ndarray:
+    def _standard_normal(self, n: int, gens) -> np.ndarray:
         out = np.empty(n, np.float32)
         half = n // 2
-        parts = ((self._normal[0], out[:half]), (self._normal[1], out[half:]))
+        parts = ((gens[0], out[:half]), (gens[1], out[half:]))
         list(self._pool.map(lambda p: p[0].standard_normal(dtype=np.float32, out=p[1]), parts))
         return out
 
-    def expose(self, electrons_mean: np.ndarray, gain_db: float, noiseless: bool = False) -> np.ndarray:
-        """Counts (uint16, same shape) for expected electrons per pixel; ``noiseless`` gives the rounded mean."""
+    def expose(self, electrons_mean: np.ndarray, gain_db: float, key: int = 0, noiseless: bool = False) -> np.ndarray:
+        """Counts (uint16, same shape) for expected electrons per pixel.
+
+        Frames with the same ``key`` get the same noise; ``noiseless`` gives the rounded mean.
+        """
         n = self.noise
         shape = electrons_mean.shape
         mean = np.minimum(electrons_mean.astype(np.float32, copy=False).ravel(), 4 * n.full_well_e)
         if noiseless:
             electrons = mean.copy()
         else:
-            z = self._standard_normal(mean.size)
+            gens = [np.random.Generator(np.random.SFC64(s))
+                    for s in np.random.SeedSequence([self.seed, key]).spawn(3)]
+            z = self._standard_normal(mean.size, gens)
             read2 = np.float32(n.read_noise_e**2)
             electrons = np.sqrt(mean + read2)
             electrons *= z
             electrons += mean
             low = np.flatnonzero(mean < EXACT_BELOW_E)
             if low.size:
-                shot = self._poisson.poisson(mean[low]).astype(np.float32)
+                shot = gens[2].poisson(mean[low]).astype(np.float32)
                 electrons[low] = shot + np.float32(n.read_noise_e) * z[low]
         np.minimum(electrons, np.float32(n.full_well_e), out=electrons)
         adu = electrons

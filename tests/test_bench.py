@@ -242,3 +242,18 @@ def test_horizontal_split_gives_horizontal_fringes(small_cfg):
     cols = np.arange(profile_x.size)
     along_x = abs(np.sum(np.hanning(cols.size) * profile_x * np.exp(-2j * np.pi * cols / period)))
     assert along_y > 20 * along_x * rows.size / cols.size
+
+
+def test_a_bench_started_later_on_the_time_line_reproduces_the_frames(small_cfg):
+    """Noise and vibration are keyed by frame number, so a resumed simulated run sees what an uninterrupted one saw."""
+    first = Bench(small_cfg)
+    for gray in (0, 120, 50):
+        SimScreen(first).show(split_for(small_cfg, gray))
+        first.clock.sleep(0.1)
+    resume_at = first.clock.now() - 0.1
+    wanted = SimCamera(first).grab()
+    resumed = Bench(small_cfg, start_s=resume_at)
+    SimScreen(resumed).show(split_for(small_cfg, 50))
+    resumed.clock.sleep(0.1)
+    got = SimCamera(resumed).grab()
+    assert got.sequence == wanted.sequence and np.array_equal(got.image, wanted.image)
