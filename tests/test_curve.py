@@ -1,0 +1,179 @@
+"""Phase curve: unwrapping, drift removal, sign, outliers, smooth fit and invariances."""
+
+import numpy as np
+import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
+
+from analysis.band import Band
+from analysis.carrier import Carrier
+from analysis.curve import CurveError, circular_mean, monotone_fit, phase_curve, unwrap_levels
+from analysis.fringe import carrier_lsq, lsq_model
+from synthetic import fringes
+
+GRAYS = np.arange(0, 256, 3)
+
+
+def panel_curve(g):
+    """A rising, S-shaped phase response (rad) reaching about 2.2 pi at gray 255."""
+    return 7.0 * np.sin(np.pi * np.asarray(g) / 510) ** 2 * 2 / (1 + 0.3 * np.asarray(g) / 255)
+
+
+def sweep(reference_every=16, frames=2, noise=0.005, drift_rad=0.0, offset=0.4, seed=0):
+    """Frames of a sweep (acquisition order) with reference-gray visits: gray, wrapped phase, std, time."""
+    rng = np.random.default_rng(seed)
+    grays = []
+    for i, g in enumerate(GRAYS):
+        if reference_every and i % reference_every == 0 and i:
+            grays += [0] * frames
+        grays += [int(g)] * frames
+    if reference_every:
+        grays += [0] * frames
+    grays = np.array(grays)
+    t = 0.02 * np.arange(grays.size)
+    truth = panel_curve(grays)
+    measured = -truth + offset + drift_rad * t / t.max() + rng.normal(0, noise, grays.size)
+    return grays, np.angle(np.exp(1j * measured)), np.full(grays.size, noise), t
+
+
+def offset_free_rms(curve):
+    err = curve.phase_rad - panel_curve(curve.gray)
+    return float(np.sqrt(np.mean((err - err.mean()) ** 2)))
+
+
+def test_unwrap_matches_numpy_on_clean_data():
+    """On clean, finely sampled phases the level unwrapping equals numpy.unwrap."""
+    wrapped = np.angle(np.exp(1j * panel_curve(GRAYS)))
+    np.testing.assert_allclose(unwrap_levels(GRAYS, wrapped), np.unwrap(wrapped), atol=1e-12)
+
+
+@settings(max_examples=30, deadline=None)
+@given(st.lists(st.floats(-1.2, 1.2), min_size=5, max_size=60), st.floats(-3, 3))
+def test_unwrap_matches_numpy_for_steps_below_pi(steps, start):
+    """Any sequence with steps below 1.2 rad (a steady curve): same result as numpy.unwrap."""
+    truth = start + np.cumsum(steps)
+    wrapped = np.angle(np.exp(1j * truth))
+    grays = np.arange(truth.size)
+    np.testing.assert_allclose(unwrap_levels(grays, wrapped), np.unwrap(wrapped), atol=1e-9)
+
+
+def test_unwrap_survives_one_noisy_step_on_a_steep_curve():
+    """A steep stretch (1.4 rad per level) with one level 2 rad off: numpy.unwrap shifts every later level by 2 pi,
+    the predicting unwrapper keeps them on their branch."""
+    grays = np.arange(20)
+    truth = 1.4 * grays
+    noisy = truth.copy()
+    noisy[8] += 2.0
+    wrapped = np.angle(np.exp(1j * noisy))
+    ours = unwrap_levels(grays, wrapped)
+    np.testing.assert_allclose(np.delete(ours, 8), np.delete(truth, 8), atol=1e-9)
+    assert np.abs(np.unwrap(wrapped)[9:] - truth[9:]).max() > 6
+
+
+def test_curve_recovered_with_drift_removed():
+    """1 rad of linear drift over the sweep, references every 16 levels: the curve comes back within the noise
+    (the per-level standard error is 0.005 / sqrt(2)), the drift model spans 1 rad, the sign is chosen rising."""
+    grays, phase, std, t = sweep(drift_rad=1.0)
+    curve = phase_curve(grays, phase, std, t)
+    assert curve.sign == -1
+    assert curve.drift is not None and curve.drift.span_rad == pytest.approx(1.0, abs=0.02)
+    assert offset_free_rms(curve) < 2 * 0.005 / np.sqrt(2)
+    assert curve.phase_rad[curve.gray == 0][0] == 0.0
+    no_refs = phase_curve(*sweep(reference_every=0, drift_rad=1.0)[:3])
+    assert offset_free_rms(no_refs) > 10 * offset_free_rms(curve)
+
+
+def test_summary_figures():
+    """Range and first gray reaching 2 pi read from the curve; the smooth fit is monotone and within the noise."""
+    curve = phase_curve(*sweep(), smooth=True)
+    truth = panel_curve(curve.gray)
+    assert curve.summary.range_rad == pytest.approx(np.ptp(truth), abs=0.02)
+    assert curve.summary.range_pi == pytest.approx(curve.summary.range_rad / np.pi)
+    assert curve.summary.first_gray_2pi == int(curve.gray[np.flatnonzero(truth >= 2 * np.pi)[0]])
+    assert np.all(np.diff(curve.smooth_rad) >= -1e-9)
+    assert curve.summary.smooth_rms_rad < 0.02
+    assert curve.summary.worst_std_rad == pytest.approx(curve.std_rad.max())
+
+
+def test_outliers_rejected_and_reported():
+    """One frame 1.5 rad off in a level of four frames and one whole level 1 rad off are rejected and listed; the
+    rest of the curve is unharmed."""
+    grays, phase, std, t = sweep(frames=4)
+    bad_frame = int(np.flatnonzero(grays == 99)[1])
+    phase[bad_frame] += 1.5
+    phase[grays == 150] += 1.0
+    curve = phase_curve(grays, phase, std, t)
+    assert bad_frame in curve.rejected_frames
+    assert curve.rejected_grays == (150,)
+    assert 150 not in curve.gray
+    assert offset_free_rms(curve) < 0.01
+
+
+def test_circular_mean_across_the_wrap():
+    """Phases either side of +-pi average to pi, not 0; the error is the scatter's when it exceeds the frames'."""
+    mean, err = circular_mean(np.array([np.pi - 0.1, -np.pi + 0.1]), np.array([0.001, 0.001]))
+    assert abs(abs(mean) - np.pi) < 1e-12
+    assert err == pytest.approx(0.1, rel=0.05)
+
+
+def test_monotone_fit_is_monotone_on_noisy_data():
+    """A noisy flat-then-rising curve: the fit never falls and stays within 3 noise sigmas rms."""
+    rng = np.random.default_rng(2)
+    g = np.arange(256)
+    y = np.maximum(g - 100, 0) * 0.04 + rng.normal(0, 0.05, g.size)
+    fit = monotone_fit(g, y, np.full(g.size, 0.05))
+    assert np.all(np.diff(fit) >= -1e-9)
+    assert np.sqrt(np.mean((fit - y) ** 2)) < 3 * 0.05
+
+
+def test_missing_reference_gray_is_an_error():
+    """No frame at the reference gray: CurveError naming it."""
+    grays, phase, std, t = sweep()
+    with pytest.raises(CurveError, match="reference gray 7"):
+        phase_curve(grays, phase, std, t, reference_gray=7)
+
+
+@settings(max_examples=15, deadline=None)
+@given(st.floats(-10, 10))
+def test_constant_phase_added_to_every_frame_changes_nothing(shift):
+    """A constant added to every frame's phase leaves the curve unchanged."""
+    grays, phase, std, t = sweep(drift_rad=0.5)
+    a = phase_curve(grays, phase, std, t)
+    b = phase_curve(grays, np.angle(np.exp(1j * (phase + shift))), std, t)
+    np.testing.assert_allclose(a.phase_rad, b.phase_rad, atol=1e-9)
+
+
+@settings(max_examples=10, deadline=None)
+@given(st.integers(0, 2**32 - 1))
+def test_shuffled_order_with_true_timestamps_changes_nothing(seed):
+    """Handing the frames over in any order, each with its acquisition time, gives the same curve and drift."""
+    grays, phase, std, t = sweep(drift_rad=1.0)
+    a = phase_curve(grays, phase, std, t)
+    p = np.random.default_rng(seed).permutation(grays.size)
+    b = phase_curve(grays[p], phase[p], std[p], t[p])
+    np.testing.assert_allclose(a.phase_rad, b.phase_rad, atol=1e-9)
+    np.testing.assert_allclose(a.std_rad, b.std_rad, atol=1e-12)
+
+
+@settings(max_examples=8, deadline=None)
+@given(st.floats(0.1, 10.0), st.floats(-3.0, 3.0))
+def test_images_mirrored_or_scaled(scale, offset):
+    """From synthetic fringe images: mirroring x leaves the auto-signed curve unchanged and negates a curve of
+    fixed sign; scaling the intensity changes nothing."""
+    grays = np.arange(0, 256, 32)
+    truth = panel_curve(grays)
+    band, carrier = Band(0, 160, 0, 48), Carrier(0.094, 0.0)
+    model = lsq_model(band, carrier)
+    imgs = [fringes(offset - p, (48, 160), envelope=True, noise=2.0, rng=np.random.default_rng(int(g)))
+            for g, p in zip(grays, truth)]
+
+    def curve(images, sign=None):
+        est = [carrier_lsq(im, model) for im in images]
+        return phase_curve(grays, [e.phase_rad for e in est], [e.std_rad for e in est], sign=sign)
+
+    base, mirrored = curve(imgs), curve([im[:, ::-1] for im in imgs])
+    np.testing.assert_allclose(mirrored.phase_rad, base.phase_rad, atol=1e-6)
+    np.testing.assert_allclose(curve(imgs, sign=1).phase_rad, -curve([im[:, ::-1] for im in imgs], sign=1).phase_rad,
+                               atol=1e-6)
+    np.testing.assert_allclose(curve([im * scale for im in imgs]).phase_rad, base.phase_rad, atol=1e-9)
+    np.testing.assert_allclose(base.phase_rad, truth - truth[0], atol=0.01)
