@@ -1,0 +1,229 @@
+"""``fringecal analyze``: phase curve from a folder of split-screen fringe images."""
+
+from __future__ import annotations
+
+import csv
+import json
+import math
+import platform
+import sys
+from pathlib import Path
+
+import numpy as np
+
+from analysis.band import Band, find_band, survey_band
+from analysis.carrier import NoFringesError
+from analysis.curve import CurveError, phase_curve
+from analysis.fringe import DEFAULT_METHOD, METHODS, estimate, lsq_model
+from analysis.imageio import DEFAULT_NAME_PATTERN, ImageFolderError, list_images, read_image
+from rig import __version__
+from rig.errors import UsageError
+
+BAND_SAMPLES = 8        # frames at distinct grays used to find the band
+PROGRESS_FROM = 20      # show a progress bar for folders of at least this many images
+
+
+def register(command) -> None:
+    p = command("analyze", cmd_analyze, "phase-vs-gray curve from a folder of fringe images")
+    p.add_argument("source", metavar="SOURCE", help="folder with manifest.csv (gray,file[,time_s]) or images named by gray")
+    p.add_argument("--out", required=True, metavar="DIR", help="folder for phase.csv, analysis.json and phase.png")
+    p.add_argument("--roi", metavar="x0:x1,y0:y1", help="fringe band in image pixels (default: found automatically)")
+    p.add_argument("--method", default=DEFAULT_METHOD, choices=METHODS, help=f"phase estimator (default {DEFAULT_METHOD})")
+    p.add_argument("--reference-gray", type=int, default=0, metavar="G", help="gray the phases are relative to (default 0)")
+    p.add_argument("--sign", default="auto", choices=("auto", "+1", "-1"),
+                   help="auto: the curve rises with gray; +1/-1: keep or flip the measured direction")
+    p.add_argument("--name-pattern", default=DEFAULT_NAME_PATTERN, metavar="RE",
+                   help="regex with one group for the gray, matched against file names without suffix "
+                        f"(default {DEFAULT_NAME_PATTERN!r}: g017.png, 017.tif)")
+    p.add_argument("--bit-depth", type=int, default=8, metavar="BITS", help="panel gray-level bits (default 8)")
+    p.add_argument("--dark-adu", type=float, default=0.0, metavar="ADU",
+                   help="camera black level, subtracted for the contrast figures (default 0)")
+    p.add_argument("--smooth", action="store_true", help="also fit a smooth monotone curve")
+    p.add_argument("--json", action="store_true", help="print the summary as JSON on stdout")
+
+
+def parse_roi(text: str) -> Band:
+    """A Band from 'x0:x1,y0:y1' (half-open pixel bounds)."""
+    try:
+        xs, ys = text.split(",")
+        x0, x1 = (int(v) for v in xs.split(":"))
+        y0, y1 = (int(v) for v in ys.split(":"))
+    except ValueError:
+        raise UsageError(f"--roi: expected x0:x1,y0:y1 in pixels, got {text!r}") from None
+    return Band(x0, x1, y0, y1)
+
+
+def cmd_analyze(args) -> int:
+    """Find the fringe band, measure every frame's fringe phase and write the phase-vs-gray curve."""
+    out = Path(args.out)
+    if out.exists() and not out.is_dir():
+        raise UsageError(f"--out: {out} exists and is not a folder")
+    if not 1 <= args.bit_depth <= 16:
+        raise UsageError(f"--bit-depth: expected 1 to 16 bits, got {args.bit_depth}")
+    try:
+        return _analyze(args, out)
+    except (ImageFolderError, NoFringesError, CurveError, ValueError) as err:
+        raise UsageError(str(err)) from None
+
+
+def _analyze(args, out: Path) -> int:
+    records = list_images(args.source, args.name_pattern)
+    gmax = 2**args.bit_depth - 1
+    bad = sorted({r.gray for r in records if not 0 <= r.gray <= gmax})
+    if bad:
+        raise UsageError(f"gray {bad[0]}: expected gray levels in [0, {gmax}] for a {args.bit_depth}-bit panel "
+                         "(see --bit-depth)")
+    if not any(r.gray == args.reference_gray for r in records):
+        raise UsageError(f"--reference-gray: no image at gray {args.reference_gray}")
+    warnings: list[str] = []
+
+    first = read_image(records[0].path)
+    shape, dtype = first.shape, first.dtype
+    distinct = sorted({r.gray for r in records})
+    picks = [distinct[i] for i in np.unique(np.linspace(0, len(distinct) - 1, BAND_SAMPLES).round().astype(int))]
+    samples = [first] + [_read_same(r.path, shape) for r in (next(r for r in records if r.gray == g) for g in picks)]
+    full_scale = _full_scale(dtype, max(int(np.max(s)) for s in samples))
+    if args.roi:
+        survey = survey_band(samples[0], parse_roi(args.roi), args.dark_adu)
+    else:
+        survey = find_band(samples, args.dark_adu)
+    band, carrier = survey.band, survey.carrier
+    model = lsq_model(band, carrier) if args.method == "carrier-lsq" else None
+
+    rows = []
+    saturated: set[int] = set()
+    with _progress(len(records)) as advance:
+        for record in records:
+            img = _read_same(record.path, shape)
+            est = estimate(img, band, carrier, args.method, args.dark_adu, full_scale, model)
+            if np.count_nonzero(img[band.slices] >= full_scale):
+                saturated.add(record.gray)
+            rows.append((record, est))
+            advance()
+    if saturated:
+        warnings.append(f"saturated frames (pixels at {full_scale} counts in the band) at grays "
+                        f"{', '.join(str(g) for g in sorted(saturated))}; lower the exposure")
+    if survey.contrast < 0.2:
+        warnings.append(f"low fringe contrast {survey.contrast:.2f}; check polarisation and overlap")
+    times = [r.time_s for r, _ in rows]
+    curve = phase_curve([r.gray for r, _ in rows], [e.phase_rad for _, e in rows], [e.std_rad for _, e in rows],
+                        None if times[0] is None else times, [e.contrast for _, e in rows], args.reference_gray,
+                        None if args.sign == "auto" else int(args.sign), args.smooth)
+    if curve.rejected_frames:
+        files = ", ".join(rows[i][0].path.name for i in curve.rejected_frames)
+        warnings.append(f"{len(curve.rejected_frames)} outlier frames left out: {files}")
+    if curve.rejected_grays:
+        warnings.append(f"outlier gray levels left out: {', '.join(str(g) for g in curve.rejected_grays)}")
+    if curve.drift is None:
+        warnings.append("no drift correction: the reference gray was measured in fewer than two visits")
+
+    out.mkdir(parents=True, exist_ok=True)
+    _write_csv(out / "phase.csv", curve)
+    summary = _summary(args, records, survey, curve, warnings, full_scale)
+    (out / "analysis.json").write_text(json.dumps(summary, indent=2) + "\n", encoding="utf-8")
+    _plot(out / "phase.png", curve, args.method)
+    for w in warnings:
+        print(f"fringecal: warning: {w}", file=sys.stderr)
+    if args.json:
+        print(json.dumps(summary, indent=2))
+    else:
+        s = curve.summary
+        reach = f"2pi first at gray {s.first_gray_2pi}" if s.first_gray_2pi is not None else "2pi not reached"
+        print(f"wrote {out}/phase.csv, analysis.json, phase.png: {curve.gray.size} grays from {len(records)} images, "
+              f"range {s.range_rad:.3f} rad ({s.range_pi:.2f} pi), {reach}, worst std {s.worst_std_rad * 1e3:.1f} mrad "
+              f"at gray {s.worst_std_gray}")
+    return 0
+
+
+def _read_same(path: Path, shape: tuple[int, int]) -> np.ndarray:
+    img = read_image(path)
+    if img.shape != shape:
+        raise UsageError(f"{path}: expected a {shape[1]}x{shape[0]} px image like the others, "
+                         f"got {img.shape[1]}x{img.shape[0]}")
+    return img
+
+
+def _full_scale(dtype: np.dtype, peak: int) -> int:
+    """Camera full scale: 255 for 8-bit files; for 16-bit files the smallest 2^b - 1 (b >= 8) holding the peak,
+    since a 10- or 12-bit camera's counts are usually stored unshifted."""
+    if dtype == np.uint8:
+        return 255
+    if dtype.kind == "f":
+        return int(2**math.ceil(math.log2(max(peak, 255) + 1)) - 1)
+    return 2 ** max(8, int(peak).bit_length()) - 1
+
+
+class _progress:
+    """Context giving an advance() callable: a rich progress bar on stderr for long folders, else a no-op."""
+
+    def __init__(self, total: int):
+        self.total = total
+        self.bar = None
+
+    def __enter__(self):
+        if self.total < PROGRESS_FROM:
+            return lambda: None
+        from rich.console import Console
+        from rich.progress import Progress
+        self.bar = Progress(console=Console(stderr=True), transient=True)
+        self.bar.start()
+        task = self.bar.add_task("measuring fringe phases", total=self.total)
+        return lambda: self.bar.advance(task)
+
+    def __exit__(self, *exc):
+        if self.bar is not None:
+            self.bar.stop()
+        return False
+
+
+def _write_csv(path: Path, curve) -> None:
+    with path.open("w", newline="") as fh:
+        writer = csv.writer(fh)
+        writer.writerow(["gray", "phase_rad", "phase_std_rad", "contrast", "n_frames"])
+        for g, p, s, c, n in zip(curve.gray, curve.phase_rad, curve.std_rad, curve.contrast, curve.n_frames):
+            writer.writerow([int(g), f"{p:.6f}", f"{s:.6f}", f"{c:.4f}", int(n)])
+
+
+def _summary(args, records, survey, curve, warnings, full_scale) -> dict:
+    import cv2
+    import scipy
+
+    s, b, c = curve.summary, survey.band, survey.carrier
+    drift = None
+    if curve.drift is not None:
+        d = curve.drift
+        drift = {"model": f"polynomial of degree {len(d.coefficients) - 1} in time", "t0_s": d.t0_s,
+                 "coefficients_rad_per_s_power": list(d.coefficients), "reference_visits": d.n_visits,
+                 "span_rad": d.span_rad, "time_base": "time_s" if records[0].time_s is not None else "image index"}
+    return {
+        "source": str(args.source), "images": len(records), "method": args.method,
+        "roi": {"x0": b.x0, "x1": b.x1, "y0": b.y0, "y1": b.y1, "automatic": not args.roi},
+        "carrier": {"period_px": c.period_px, "angle_deg": c.angle_deg, "sharpness": c.sharpness},
+        "fringe_count": survey.fringe_count, "period_spread": survey.period_spread,
+        "band_contrast": survey.contrast, "camera_full_scale_adu": full_scale,
+        "reference_gray": curve.reference_gray, "sign": curve.sign, "drift": drift,
+        "range_rad": s.range_rad, "range_pi": s.range_pi, "first_gray_2pi": s.first_gray_2pi,
+        "smooth_rms_rad": s.smooth_rms_rad, "worst_std_rad": s.worst_std_rad, "worst_std_gray": s.worst_std_gray,
+        "rejected_grays": list(curve.rejected_grays), "warnings": warnings,
+        "versions": {"fringecal": __version__, "python": platform.python_version(), "numpy": np.__version__,
+                     "scipy": scipy.__version__, "opencv": cv2.__version__},
+    }
+
+
+def _plot(path: Path, curve, method: str) -> None:
+    import matplotlib
+    matplotlib.use("Agg")
+    import matplotlib.pyplot as plt
+
+    fig, ax = plt.subplots(figsize=(7, 4.5), dpi=110)
+    ax.errorbar(curve.gray, curve.phase_rad / np.pi, yerr=curve.std_rad / np.pi, fmt=".", ms=3, capsize=1.5,
+                label=f"measured ({method})")
+    if curve.smooth_rad is not None:
+        ax.plot(curve.gray, curve.smooth_rad / np.pi, "-", lw=1, label="monotone fit")
+    ax.set_xlabel("gray level")
+    ax.set_ylabel(f"phase relative to gray {curve.reference_gray} (π rad)")
+    ax.grid(alpha=0.3)
+    ax.legend(loc="upper left")
+    fig.tight_layout()
+    fig.savefig(path)
+    plt.close(fig)
