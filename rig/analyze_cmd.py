@@ -84,7 +84,9 @@ def _analyze(args, out: Path) -> int:
     samples = [first] + [_read_same(r.path, shape) for r in (next(r for r in records if r.gray == g) for g in picks)]
     full_scale = _full_scale(dtype, max(int(np.max(s)) for s in samples))
     if args.roi:
-        survey = survey_band(samples[0], parse_roi(args.roi), args.dark_adu)
+        roi = parse_roi(args.roi)
+        roi.check_inside(shape, "--roi")
+        survey = survey_band(samples[0], roi, args.dark_adu)
     else:
         survey = find_band(samples, args.dark_adu)
     band, carrier = survey.band, survey.carrier
