@@ -14,13 +14,10 @@ TRADE_OFF = ("A shorter grating period diffracts at a larger angle, so the beams
              "shorter, but the fringes are finer on the sensor; a longer period needs more distance, and a longer "
              "path is more sensitive to air currents and vibration.")
 
-# flag -> (BenchSetup field, what a valid value is)
-FLAGS = {"wavelength_nm": ("wavelength_nm", "a wavelength > 0 nm"),
-         "pitch_um": ("pitch_um", "a panel pixel pitch > 0 um"),
-         "period_px": ("period_px", "a grating period of at least 2 px"),
-         "camera_pixel_um": ("camera_pixel_um", "a camera pixel pitch > 0 um"),
-         "distance_mm": ("distance_mm", "a distance > 0 mm"),
-         "beam_radius_mm": ("beam_radius_mm", "a beam radius > 0 mm")}
+# BenchSetup field a flag overrides -> what a valid value is
+FLAGS = {"wavelength_nm": "a wavelength > 0 nm", "pitch_um": "a panel pixel pitch > 0 um",
+         "period_px": "a grating period of at least 2 px", "camera_pixel_um": "a camera pixel pitch > 0 um",
+         "distance_mm": "a distance > 0 mm", "beam_radius_mm": "a beam radius > 0 mm"}
 
 
 def cmd_plan(args) -> int:
@@ -30,13 +27,12 @@ def cmd_plan(args) -> int:
     """
     cfg = load_bench_config(args)
     changes = {}
-    for flag, (field, expected) in FLAGS.items():
-        value = getattr(args, flag)
+    for field, expected in FLAGS.items():
+        value = getattr(args, field)
         if value is None:
             continue
-        low = 2 if flag == "period_px" else 0
-        if not (math.isfinite(value) and (value >= low if flag == "period_px" else value > low)):
-            raise UsageError(f"--{flag.replace('_', '-')}: expected {expected}, got {value:g}")
+        if not (math.isfinite(value) and (value >= 2 if field == "period_px" else value > 0)):
+            raise UsageError(f"--{field.replace('_', '-')}: expected {expected}, got {value:g}")
         changes[field] = value
     setup = dataclasses.replace(setup_from_config(cfg), **changes)
     try:
