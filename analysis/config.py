@@ -42,6 +42,7 @@ class Laser:
     power_mw: float = spec(3.0, lo=0.0, hi=1e5, lo_open=True, doc="power reaching the panel")
     laser_class: str = spec("unset", choices=("unset", "1", "1M", "2", "2M", "3R", "3B", "4"),
                             doc="IEC 60825-1 class as labelled on the laser")
+    safety_acknowledged: bool = spec(False, doc="the laser-safety notice has been read (otherwise asked once per machine)")
 
 
 @dataclass(frozen=True)

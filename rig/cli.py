@@ -32,7 +32,7 @@ examples:
 """
 
 
-COMMAND_MODULES: tuple[str, ...] = ("rig.lut_cmd", "rig.pattern_cmd", "rig.analyze_cmd", "rig.plan_cmd")
+COMMAND_MODULES: tuple[str, ...] = ("rig.run_cmd", "rig.analyze_cmd", "rig.lut_cmd", "rig.pattern_cmd", "rig.plan_cmd")
 
 
 def load_bench_config(args) -> Config:

@@ -1,0 +1,209 @@
+"""The run loop: executes plans on a screen and a camera, analyses frames off the acquisition path, journals them.
+
+Contract:
+- Frames exposed before the settle deadline of the last pattern change are discarded, never analysed.
+- Camera timeouts and incomplete frames are retried with a bounded back-off and counted; ``MAX_RETRIES`` failures in
+  a row, or a camera that is gone, raise ``DeviceFault`` after everything analysed so far has been journaled.
+- Analysis and journaling run in one worker thread, in submission order, so the loop waits only on hardware; a
+  checkpoint is journaled after the frames of its unit.
+- ``request_stop()`` (Ctrl-C) makes the loop stop before the next pattern change: ``Interrupted`` is raised once the
+  worker has drained, leaving the run resumable.
+"""
+
+from __future__ import annotations
+
+import collections
+import math
+from concurrent.futures import Future, ThreadPoolExecutor
+from typing import Callable
+
+import numpy as np
+
+from analysis.patterns import layout_of, split_screen
+from rig.errors import FringecalError
+from rig.plans import Checkpoint, Grab, Measurement, SetExposure, Settle, ShowSplit, Stage
+
+MAX_RETRIES = 8
+BACKOFF_S = (0.02, 0.05, 0.1, 0.2, 0.5, 1.0)
+MAX_STALE = 200  # frames dropped for one grab before the camera is declared out of step with the panel
+
+
+class DeviceFault(FringecalError):
+    """A device failed for good (gone, or failing every retry); the message names the device and what failed."""
+
+
+class Interrupted(FringecalError):
+    """The run was stopped on request and can be resumed."""
+
+
+class Engine:
+    """Executes plan steps on ``screen`` and ``camera``; ``analyzer`` turns frames into FrameResults.
+
+    ``on_frame(record, result, image)`` is called in the worker for every analysed frame and returns the journal
+    record (the run folder uses it to save crops); ``publish(event)`` receives progress events from both threads.
+    """
+
+    def __init__(self, cfg, screen, camera, clock, analyzer, journal=None, publish: Callable[[dict], None] = None,
+                 on_frame: Callable | None = None, timeout_s: float = 2.0, frames_before: int = 0, session: int = 1):
+        self.cfg = cfg
+        self.screen, self.camera, self.clock = screen, camera, clock
+        self.analyzer = analyzer
+        self.journal = journal
+        self.publish = publish or (lambda event: None)
+        self.on_frame = on_frame
+        self.timeout_s = timeout_s
+        self.faults: collections.Counter[str] = collections.Counter()
+        self.frames_grabbed = frames_before  # frames journaled by earlier sessions of a resumed run
+        self.session = session  # which session of the run (1, then one more per resume) wrote a journal line
+        self._stop = False
+        self._worker = ThreadPoolExecutor(max_workers=1, thread_name_prefix="analysis")
+        self._pending: collections.deque[Future] = collections.deque()
+        self._patterns: dict[tuple[int, int, int], np.ndarray] = {}
+        self._changed_at = -math.inf
+        self._deadline = -math.inf
+        self._units_done = 0
+        self._stage_total = 0
+
+    # --- control ---------------------------------------------------------------------------------------------
+    def request_stop(self) -> None:
+        """Stop before the next pattern change (safe to call from a signal handler)."""
+        self._stop = True
+
+    def run(self, plan):
+        """Execute ``plan`` to its end and return its return value."""
+        reply = None
+        try:
+            while True:
+                try:
+                    step = plan.send(reply)
+                except StopIteration as done:
+                    return done.value
+                reply = self._execute(step)
+        finally:
+            self.drain()
+
+    def drain(self) -> None:
+        """Wait until every submitted frame is analysed and journaled; re-raise the first worker failure."""
+        while self._pending:
+            self._pending.popleft().result()
+
+    def close(self) -> None:
+        """Drain and stop the worker."""
+        try:
+            self.drain()
+        finally:
+            self._worker.shutdown(wait=True)
+
+    # --- steps -----------------------------------------------------------------------------------------------
+    def _execute(self, step):
+        if isinstance(step, (ShowSplit, Stage)) and self._stop:
+            self.drain()
+            raise Interrupted("stopped on request; resume to finish")
+        if isinstance(step, ShowSplit):
+            return self._show(step)
+        if isinstance(step, Settle):
+            self._deadline = self._changed_at + step.seconds
+            self.clock.sleep(self._deadline - self.clock.now())
+            return None
+        if isinstance(step, Grab):
+            return self._grab(step)
+        if isinstance(step, SetExposure):
+            self.camera.exposure_s = step.exposure_s
+            return None
+        if isinstance(step, Checkpoint):
+            self._submit(self._checkpoint, step.key, self.clock.now())
+            return None
+        if isinstance(step, Stage):
+            self._units_done, self._stage_total = step.done, step.total
+            self.publish({"event": "stage", "name": step.name, "total": step.total, "done": step.done})
+            return None
+        raise TypeError(f"plan step: expected one of the step types of rig.plans, got {step!r}")
+
+    def _show(self, step: ShowSplit) -> None:
+        key = (step.mirror_gray, step.low, step.high)
+        if key not in self._patterns:
+            if len(self._patterns) > 8:
+                self._patterns.clear()
+            m, p = self.cfg.modulator, self.cfg.pattern
+            self._patterns[key] = split_screen(m.width_px, m.height_px, *key, layout_of(p), m.bit_depth)
+        self.screen.show(self._patterns[key])
+        self._changed_at = self.clock.now()
+        self._deadline = self._changed_at
+        self.publish({"event": "pattern", "mirror_gray": step.mirror_gray, "low": step.low, "high": step.high})
+
+    def _grab(self, step: Grab):
+        futures, images = [], []
+        failures = stale = 0
+        while len(futures) < step.frames:
+            try:
+                frame = self.camera.grab(timeout_s=self.timeout_s)
+            except TimeoutError as err:
+                failures = self._retry("timeout", step, failures, err)
+                continue
+            except ConnectionError as err:
+                self.drain()
+                raise DeviceFault(f"camera: {err} (at gray {step.gray}, {step.purpose})") from None
+            if not frame.complete:
+                failures = self._retry("incomplete", step, failures, "frame delivered incomplete")
+                continue
+            if frame.timestamp_s - frame.exposure_s / 2 < self._deadline:
+                stale += 1
+                self.faults["stale"] += 1
+                if stale > MAX_STALE:
+                    self.drain()
+                    raise DeviceFault(f"camera: {stale} frames in a row predate the settle deadline; "
+                                      "are camera timestamps on the bench clock?")
+                continue
+            failures = 0
+            self.frames_grabbed += 1
+            futures.append(self._submit(self._analyse, frame, step, self.frames_grabbed))
+            if step.wait and step.purpose == "locate":
+                images.append(frame.image)
+        if not step.wait:
+            return None
+        return Measurement(tuple(f.result() for f in futures), tuple(images))
+
+    def _retry(self, kind: str, step: Grab, failures: int, err) -> int:
+        self.faults[kind] += 1
+        self._submit(self._journal_fault, kind, step, self.clock.now(), str(err))
+        self.publish({"event": "fault", "kind": kind, "count": self.faults[kind], "gray": step.gray})
+        failures += 1
+        if failures >= MAX_RETRIES:
+            self.drain()
+            raise DeviceFault(f"camera: {failures} {kind}s in a row at gray {step.gray} ({step.purpose}); "
+                              f"last: {err}")
+        self.clock.sleep(BACKOFF_S[min(failures - 1, len(BACKOFF_S) - 1)])
+        return failures
+
+    # --- worker ----------------------------------------------------------------------------------------------
+    def _submit(self, func, *args) -> Future:
+        while self._pending and self._pending[0].done():
+            self._pending.popleft().result()
+        future = self._worker.submit(func, *args)
+        self._pending.append(future)
+        return future
+
+    def _analyse(self, frame, step: Grab, number: int):
+        result = self.analyzer(frame.image, step.gray, step.purpose, frame.timestamp_s, frame.sequence)
+        record = {"frame": number, "session": self.session, "unit": step.unit, "purpose": step.purpose,
+                  "gray": step.gray, "t_s": round(frame.timestamp_s, 9), "sequence": frame.sequence,
+                  "exposure_s": frame.exposure_s, "phase_rad": result.phase_rad, "phase_std_rad": result.phase_std_rad,
+                  "contrast": result.contrast, "peak_fraction": round(result.peak_fraction, 5),
+                  "saturated_px": result.saturated_px}
+        if self.on_frame is not None:
+            record = self.on_frame(record, frame, step)
+        if self.journal is not None:
+            self.journal.append(record)
+        self.publish({"event": "frame", **record, "profile": self.analyzer.profile(frame.image)})
+        return result
+
+    def _journal_fault(self, kind: str, step: Grab, t_s: float, message: str) -> None:
+        if self.journal is not None:
+            self.journal.append({"fault": kind, "gray": step.gray, "purpose": step.purpose, "t_s": round(t_s, 9),
+                                 "message": message})
+
+    def _checkpoint(self, key: str, t_s: float) -> None:
+        if self.journal is not None:
+            self.journal.append({"checkpoint": key, "session": self.session, "t_s": round(t_s, 9)})
+        self._units_done += 1
+        self.publish({"event": "unit", "key": key, "done": self._units_done, "total": self._stage_total})

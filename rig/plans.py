@@ -1,0 +1,282 @@
+"""Measurement plans: generators of small steps that the engine executes. Plans hold no I/O.
+
+A plan yields steps; for a ``Grab`` with ``wait=True`` the engine sends back the ``Measurement``, so a plan can
+decide what to measure next (exposure, tuning). ``list(plan)`` on a plan that never waits runs with no hardware,
+which is how tests and dry runs see what a sweep will do. ``Checkpoint`` marks a finished unit of work: a resumed
+run skips every unit whose checkpoint is already in the journal; a unit is measured whole or not at all.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from analysis.tuning import coarse_peak, vertex_gray
+
+GOLDEN = (1 + 5**0.5) / 2
+
+
+@dataclass(frozen=True)
+class ShowSplit:
+    """Put the split-screen pattern with this mirror gray and grating pair on the panel."""
+
+    mirror_gray: int
+    low: int
+    high: int
+
+
+@dataclass(frozen=True)
+class Settle:
+    """Wait until ``seconds`` after the last pattern change; frames exposed before then are discarded."""
+
+    seconds: float
+
+
+@dataclass(frozen=True)
+class SetExposure:
+    """Set the camera exposure (s)."""
+
+    exposure_s: float
+
+
+@dataclass(frozen=True)
+class Grab:
+    """Grab ``frames`` good frames and analyse them; ``wait`` returns the Measurement to the plan."""
+
+    frames: int
+    purpose: str  # exposure | locate | tune | level | reference
+    gray: int
+    wait: bool = False
+    keep: bool = False  # save the frames' band crops in the run folder
+    unit: str | None = None  # the sweep unit the frames belong to (resumable work)
+
+
+@dataclass(frozen=True)
+class Checkpoint:
+    """The unit of work named ``key`` is complete."""
+
+    key: str
+
+
+@dataclass(frozen=True)
+class Stage:
+    """A new stage of the run begins (for progress display); ``total`` counts the units it will measure."""
+
+    name: str
+    total: int = 0
+    done: int = 0  # units already measured (a resumed sweep)
+
+
+@dataclass(frozen=True)
+class FrameResult:
+    """What analysis made of one frame (phase fields are None before the fringe band is known)."""
+
+    gray: int
+    purpose: str
+    t_s: float
+    sequence: int
+    peak_fraction: float
+    saturated_px: int
+    phase_rad: float | None = None
+    phase_std_rad: float | None = None
+    contrast: float | None = None
+    amplitude_adu: float | None = None
+
+
+@dataclass(frozen=True)
+class Measurement:
+    """The frames of one Grab, analysed."""
+
+    results: tuple[FrameResult, ...]
+    images: tuple[np.ndarray, ...] = field(default=(), repr=False)
+
+    @property
+    def contrast(self) -> float:
+        """Mean fringe contrast of the frames."""
+        return float(np.mean([r.contrast for r in self.results]))
+
+    @property
+    def amplitude_adu(self) -> float:
+        """Mean fringe amplitude of the frames (ADU)."""
+        return float(np.mean([r.amplitude_adu or 0.0 for r in self.results]))
+
+    @property
+    def peak_fraction(self) -> float:
+        """Largest fraction of full scale reached by the brightest pixels."""
+        return max(r.peak_fraction for r in self.results)
+
+    @property
+    def saturated_px(self) -> int:
+        return max(r.saturated_px for r in self.results)
+
+
+class PlanError(RuntimeError):
+    """A plan cannot go on (too little contrast, a camera that saturates at its shortest exposure)."""
+
+
+# --- exposure ------------------------------------------------------------------------------------------------
+def exposure_plan(cfg, exposure_s: float, low_gray: int, high_gray: int, target: float = 0.70, low: float = 0.60,
+                  high: float = 0.80, tries: int = 10):
+    """Bring the brightest pixels of the split pattern to ``low``..``high`` of full scale; return the exposure (s).
+
+    Scales the exposure by target / reached while nothing clips; halves it while the peak is saturated. The fringe
+    maximum does not depend on the mirror gray, only on the grating pair (how bright its first order is).
+    """
+    yield Stage("exposure", tries)
+    yield ShowSplit(cfg.sweep.reference_gray, low_gray, high_gray)
+    yield Settle(cfg.sweep.settle_s)
+    for _ in range(tries):
+        yield SetExposure(exposure_s)
+        m = yield Grab(1, "exposure", cfg.sweep.reference_gray, wait=True)
+        reached = m.peak_fraction
+        if low <= reached <= high and not m.saturated_px:
+            return exposure_s
+        exposure_s *= 0.5 if m.saturated_px or reached >= 0.999 else target / max(reached, 1e-3)
+        exposure_s = min(exposure_s, cfg.camera.exposure_s * 1e3)
+    raise PlanError(f"exposure: no exposure brought the peak into {low:.0%}..{high:.0%} of full scale in {tries} tries"
+                    f" (last {reached:.0%} at {exposure_s:.3g} s); check the light level and attenuation")
+
+
+# --- locating the band ------------------------------------------------------------------------------------------
+LOCATE_GRAYS = 8
+
+
+def locate_plan(cfg, low: int, high: int):
+    """Show LOCATE_GRAYS mirror grays spread over the panel's range with the grating pair; return their Measurements
+    (images kept): the band is where fringes move with the mirror gray, and their phases give a first coarse curve."""
+    gmax = cfg.gray_max
+    measurements = []
+    for i in range(LOCATE_GRAYS):
+        gray = round(i * gmax / (LOCATE_GRAYS - 1))
+        yield ShowSplit(gray, low, high)
+        yield Settle(cfg.sweep.settle_s)
+        measurements.append((yield Grab(1, "locate", gray, wait=True)))
+    return measurements
+
+
+def opposite_gray(grays, phases_rad, reference_gray: int) -> int:
+    """The gray whose fringe phase is pi away from the reference gray's, from a coarse (gray, phase) scan."""
+    grays = np.asarray(grays)
+    curve = np.unwrap(np.asarray(phases_rad, float))
+    curve = curve - np.interp(reference_gray, grays, curve)
+    fine = np.arange(grays.min(), grays.max() + 1)
+    wrapped = np.angle(np.exp(1j * (np.interp(fine, grays, curve) - np.pi)))
+    return int(fine[np.argmin(np.abs(wrapped))])
+
+
+# --- tuning the grating pair ---------------------------------------------------------------------------------
+@dataclass(frozen=True)
+class TuneResult:
+    """The grating pair with the strongest first order, and the curve behind the choice."""
+
+    low: int
+    high: int
+    contrast: float
+    pi_step_gray: float  # high - low (gray levels) at the fitted maximum
+    curve: tuple[tuple[int, float, float], ...]  # (high gray, fringe amplitude ADU, contrast), in measuring order
+    measurements: int  # grating pairs measured
+
+
+def tune_plan(cfg, mirror_grays: tuple[int, int], low: int | None = None, coarse_points: int = 16,
+              frames: int = 1, refine: int = 12):
+    """Find the high gray (low fixed) whose binary grating has the strongest first order: a pi phase step.
+
+    The figure of merit is the fringe amplitude at fixed exposure (proportional to the first order's field), averaged
+    over two mirror grays whose fringes are pi apart, which cancels the part of any estimator leakage that follows
+    the fringe phase. Coarse scan of ``coarse_points`` high grays; golden-section search (at most ``refine`` more
+    pairs) in the bracket of the first peak that reaches the maximum (panels of more than 2 pi have several); the
+    pair is the vertex of a parabola through the measurements near the peak, rounded to a gray level.
+    """
+    gmax = cfg.gray_max
+    low = cfg.pattern.grating_low if low is None else low
+    amplitude: dict[int, float] = {}
+    contrast: dict[int, float] = {}
+    order: list[int] = []
+
+    def measure(high):
+        if high not in amplitude:
+            ms = []
+            for gray in mirror_grays:
+                yield ShowSplit(gray, low, high)
+                yield Settle(cfg.sweep.settle_s)
+                ms.append((yield Grab(frames, "tune", high, wait=True)))
+            amplitude[high] = float(np.mean([m.amplitude_adu for m in ms]))
+            contrast[high] = float(np.mean([m.contrast for m in ms]))
+            order.append(high)
+        return amplitude[high]
+
+    yield Stage("tune", coarse_points + refine)
+    span = gmax - low
+    for high in sorted({low + max(1, round(span * (i + 1) / coarse_points)) for i in range(coarse_points)}):
+        yield from measure(high)
+    a, b = coarse_peak(sorted(amplitude.items()), low, gmax)
+    c, d = round(b - (b - a) / GOLDEN), round(a + (b - a) / GOLDEN)
+    budget = refine
+    while b - a > 2 and budget > 0 and c < d:
+        fc = yield from measure(c)
+        fd = yield from measure(d)
+        budget -= 2
+        if fc >= fd:
+            b = d
+        else:
+            a = c
+        c, d = round(b - (b - a) / GOLDEN), round(a + (b - a) / GOLDEN)
+    best = max(amplitude, key=amplitude.get)
+    lo, hi = coarse_peak(sorted(amplitude.items()), low, gmax)
+    vertex = vertex_gray({h: v for h, v in amplitude.items() if lo <= h <= hi}, best)
+    high = min(max(round(vertex), low + 1), gmax)
+    yield from measure(high)
+    return TuneResult(low, high, contrast[high], vertex - low,
+                      tuple((h, amplitude[h], contrast[h]) for h in order), len(order))
+
+
+# --- the sweep -------------------------------------------------------------------------------------------------
+def sweep_order(levels, order: str, seed: int = 0) -> list[int]:
+    """Gray levels in measuring order: ascending, shuffled (seeded), or up then down (every level twice)."""
+    levels = sorted(levels)
+    if order == "shuffled":
+        return [levels[i] for i in np.random.default_rng(seed).permutation(len(levels))]
+    if order == "up-down":
+        return levels + levels[::-1]
+    return levels
+
+
+def sweep_units(cfg, seed: int = 0) -> list[tuple[str, str, int]]:
+    """The sweep as units (checkpoint key, purpose, gray): references first, every K levels, and last."""
+    order = sweep_order(cfg.sweep_levels(), cfg.sweep.order, seed)
+    every, ref = cfg.sweep.reference_every, cfg.sweep.reference_gray
+    units, refs = [], 0
+
+    def reference():
+        nonlocal refs
+        units.append((f"reference:{refs}", "reference", ref))
+        refs += 1
+
+    if every:
+        reference()
+    for i, gray in enumerate(order):
+        units.append((f"level:{i}", "level", gray))
+        if every and ((i + 1) % every == 0 or i + 1 == len(order)):
+            reference()
+    return units
+
+
+def sweep_plan(cfg, low: int, high: int, done: frozenset[str] = frozenset(), seed: int = 0):
+    """Measure every unit of the sweep not in ``done``; frames are analysed and journaled as they come."""
+    units = sweep_units(cfg, seed)
+    yield Stage("sweep", len(units), sum(key in done for key, _, _ in units))
+    for key, purpose, gray in units:
+        if key in done:
+            continue
+        yield ShowSplit(gray, low, high)
+        yield Settle(cfg.sweep.settle_s)
+        yield Grab(cfg.sweep.frames_per_level, purpose, gray, keep=True, unit=key)
+        yield Checkpoint(key)
+
+
+def run_seconds(cfg, frame_rate_hz: float) -> float:
+    """Lower bound (s) of a sweep's duration: per unit the settle time and its frames at the camera's rate."""
+    per_frame = max(1.0 / frame_rate_hz, cfg.camera.exposure_s)
+    return len(sweep_units(cfg)) * (cfg.sweep.settle_s + cfg.sweep.frames_per_level * per_frame)
+

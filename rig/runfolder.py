@@ -1,0 +1,138 @@
+"""The run folder: what ran, with what, and everything it measured.
+
+    run.json        config snapshot, versions, host, times, devices, exposure, tuned pair, band, status
+    journal.jsonl   one line per analysed frame and per finished unit (rig.journal)
+    frames/         16-bit PNG crops of the fringe band (gNNN-fNNNNN.png), unless --no-frames
+    manifest.csv    gray,file,time_s of the saved crops in acquisition order (so `fringecal analyze` reads them)
+    phase.csv, analysis.json, phase.png, tune.csv, tune.png, truth.csv (simulator runs)
+
+Whole-file writes are atomic (rig.atomic); the journal is appended line by line.
+"""
+
+from __future__ import annotations
+
+import csv
+import datetime as dt
+import io
+import json
+import platform
+import socket
+import sys
+from pathlib import Path
+
+import cv2
+import numpy as np
+
+from analysis.config import as_dict
+from rig import __version__
+from rig.atomic import write_atomic
+from rig.errors import UsageError
+
+CROP_MARGIN_PERIODS = 3  # saved crops extend past the band so a later analysis can find the band again
+
+
+def now_iso() -> str:
+    return dt.datetime.now(dt.timezone.utc).astimezone().isoformat(timespec="seconds")
+
+
+def versions() -> dict:
+    """Versions of the software that produced a result."""
+    import scipy
+    return {"fringecal": __version__, "python": platform.python_version(), "numpy": np.__version__,
+            "scipy": scipy.__version__, "opencv": cv2.__version__}
+
+
+class RunFolder:
+    """One run's folder; ``info`` mirrors run.json and is rewritten atomically by ``update``."""
+
+    def __init__(self, path: Path, info: dict, save_frames: bool = True):
+        self.path = Path(path)
+        self.info = info
+        self.save_frames = save_frames
+        self.frames_dir = self.path / "frames"
+        self.crop = None  # (rows, cols) slices of saved crops
+
+    @classmethod
+    def create(cls, path: str | Path, cfg, command: list[str], devices: dict, save_frames: bool = True):
+        """Make a new run folder; refuse one that already holds a run (nothing measured is overwritten)."""
+        path = Path(path)
+        if (path / "run.json").exists():
+            raise UsageError(f"--out: {path} already holds a run; resume it with --resume {path} or pick a new folder")
+        if path.exists() and any(path.iterdir()):
+            raise UsageError(f"--out: {path} exists and is not empty; pick a new folder")
+        if not path.parent.exists():
+            raise UsageError(f"--out: folder {path.parent} does not exist")
+        path.mkdir(exist_ok=True)
+        info = {"fringecal_run": 1, "status": "running", "command": command, "config_source": cfg.source,
+                "config": as_dict(cfg), "versions": versions(), "host": socket.gethostname(),
+                "platform": platform.platform(), "started": now_iso(), "ended": None,
+                "wavelength_nm": cfg.laser.wavelength_nm, "devices": devices, "sessions": 1, "warnings": []}
+        folder = cls(path, info, save_frames)
+        if save_frames:
+            folder.frames_dir.mkdir(exist_ok=True)
+        folder.write_info()
+        return folder
+
+    @classmethod
+    def open(cls, path: str | Path):
+        """Open an existing run folder for resuming."""
+        path = Path(path)
+        try:
+            info = json.loads((path / "run.json").read_text())
+        except FileNotFoundError:
+            raise UsageError(f"--resume: {path} holds no run.json; expected a folder written by fringecal") from None
+        except json.JSONDecodeError as err:
+            raise UsageError(f"--resume: {path / 'run.json'} is damaged ({err})") from None
+        if info.get("fringecal_run") != 1:
+            raise UsageError(f"--resume: {path / 'run.json'} is not a fringecal run file")
+        folder = cls(path, info, save_frames=(path / "frames").is_dir())
+        info["sessions"] = info.get("sessions", 1) + 1
+        return folder
+
+    def write_info(self) -> None:
+        write_atomic(self.path / "run.json", (json.dumps(self.info, indent=2) + "\n").encode())
+
+    def update(self, **fields) -> None:
+        """Set fields of run.json and rewrite it."""
+        self.info.update(fields)
+        self.write_info()
+
+    def warn(self, message: str) -> None:
+        self.info.setdefault("warnings", []).append(message)
+        self.write_info()
+
+    def set_crop(self, band, period_px: float, shape: tuple[int, int]) -> None:
+        """Saved crops: the band plus CROP_MARGIN_PERIODS periods on each side, inside the sensor."""
+        m = int(np.ceil(CROP_MARGIN_PERIODS * period_px))
+        h, w = shape
+        self.crop = (slice(max(band.y0 - m, 0), min(band.y1 + m, h)), slice(max(band.x0 - m, 0), min(band.x1 + m, w)))
+
+    def on_frame(self, record: dict, frame, step) -> dict:
+        """Save the frame's crop when the step keeps frames; add its file name to the journal record."""
+        if self.save_frames and step.keep and self.crop is not None:
+            name = f"g{step.gray:04d}-f{record['frame']:06d}.png"
+            cv2.imwrite(str(self.frames_dir / name), np.ascontiguousarray(frame.image[self.crop]),
+                        [cv2.IMWRITE_PNG_COMPRESSION, 1])
+            record["file"] = f"frames/{name}"
+        return record
+
+    def write_csv(self, name: str, header: list[str], rows) -> Path:
+        buf = io.StringIO()
+        writer = csv.writer(buf, lineterminator="\n")
+        writer.writerow(header)
+        writer.writerows(rows)
+        return write_atomic(self.path / name, buf.getvalue().encode())
+
+    def write_manifest(self, frame_records: list[dict]) -> Path | None:
+        """manifest.csv of the saved crops, in acquisition order."""
+        rows = [(r["gray"], r["file"], r["t_s"]) for r in frame_records if r.get("file")]
+        return self.write_csv("manifest.csv", ["gray", "file", "time_s"], rows) if rows else None
+
+
+def default_run_dir(root: str | Path = "runs") -> Path:
+    """runs/YYYYmmdd-HHMMSS under the working folder."""
+    return Path(root) / dt.datetime.now().strftime("%Y%m%d-%H%M%S")
+
+
+def command_line() -> list[str]:
+    return ["fringecal", *sys.argv[1:]]

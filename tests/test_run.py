@@ -1,0 +1,222 @@
+"""The bench run end to end on the simulator: calibration accuracy, tuning, resume after kills, faults, Ctrl-C."""
+
+import csv
+import json
+import os
+import random
+import signal
+import subprocess
+import sys
+import time
+from pathlib import Path
+
+import numpy as np
+import pytest
+
+from rig.cli import main
+from rig.journal import read_journal
+
+SMALL_TOML = """
+[modulator]
+width_px = 400
+height_px = 300
+[laser]
+power_mw = 0.25
+[camera]
+width_px = 256
+height_px = 200
+[geometry]
+distance_mm = 40.0
+camera_offset_mm = [-0.42, 0.0]
+[simulator.beam]
+radius_mm = 1.0
+"""
+
+
+def read_csv(path):
+    with open(path) as fh:
+        return list(csv.DictReader(fh))
+
+
+def offset_free_rms(folder: Path) -> float:
+    """RMS over gray levels of measured minus true phase, after removing the mean (a constant phase changes
+    nothing in a calibration)."""
+    truth = {int(r["gray"]): float(r["phase_rad"]) for r in read_csv(folder / "truth.csv")}
+    rows = read_csv(folder / "phase.csv")
+    err = np.array([float(r["phase_rad"]) - truth[int(r["gray"])] for r in rows])
+    return float(np.sqrt(np.mean((err - err.mean()) ** 2)))
+
+
+def config_file(tmp_path, text, name="bench.toml"):
+    path = tmp_path / name
+    path.write_text(text)
+    return path
+
+
+@pytest.mark.parametrize("extra", [
+    "",
+    '[laser]\nwavelength_nm = 780.0\npower_mw = 2.0\n[geometry]\ndistance_mm = 200.0\ncamera_offset_mm = [-1.5, 0.0]\n'
+    '[pattern]\ngrating_high = 96\n[sweep]\nlevels = [' + ", ".join(map(str, range(0, 256, 3))) + ", 255]\n",
+    '[simulator.response]\ncell_gap_um = 5.8\n[sweep]\nlevels = [' + ", ".join(map(str, range(0, 256, 3))) + ", 255]\n",
+], ids=["default-1064nm", "780nm", "4pi-panel"])
+def test_run_recovers_the_true_curve_and_tunes_a_pi_step(tmp_path, capsys, extra):
+    """The main job on the simulator: the curve within 0.03 rad rms of the truth and a tuned pair whose true step
+    is within 0.15 rad of pi (the best pair of a binary grating is a pi step, common practice)."""
+    args = ["run", "--sim", "--out", str(tmp_path / "run"), "--yes"]
+    if extra:
+        args += ["--config", str(config_file(tmp_path, extra))]
+    assert main(args) == 0
+    run = tmp_path / "run"
+    info = json.loads((run / "run.json").read_text())
+    assert info["status"] == "complete" and info["sessions"] == 1
+    truth = {int(r["gray"]): float(r["phase_rad"]) for r in read_csv(run / "truth.csv")}
+    step = truth[info["pair"]["high"]] - truth[info["pair"]["low"]]
+    assert abs(step - np.pi) < 0.15
+    assert offset_free_rms(run) < 0.03
+    if "cell_gap_um" in extra:
+        assert truth[255] > 3.8 * np.pi
+    for name in ("phase.csv", "analysis.json", "phase.png", "tune.csv", "tune.png", "manifest.csv",
+                 "lut/lut.csv", "lut/lut.json", "lut/lut.npy", "lut/lut.mat", "lut/lut.txt"):
+        assert (run / name).is_file(), name
+    frames = read_journal(run / "journal.jsonl").frames()
+    assert len(list((run / "frames").glob("*.png"))) == len(frames) == len(read_csv(run / "manifest.csv"))
+    out = capsys.readouterr().out
+    assert "phase range" in out and "files in" in out and "\x1b[" not in out
+
+
+def sweep_cmd(*args):
+    return [sys.executable, "-m", "rig.cli", "sweep", *args]
+
+
+def wait_for_sweep(events: Path, proc, timeout_s=60.0):
+    t0 = time.monotonic()
+    while time.monotonic() - t0 < timeout_s:
+        if events.exists() and '"name":"sweep"' in events.read_text():
+            return
+        if proc.poll() is not None:
+            raise AssertionError(f"the sweep ended before it was killed: {proc.stderr.read()}")
+        time.sleep(0.02)
+    raise AssertionError("the sweep did not start")
+
+
+def unit_counts(folder: Path):
+    contents = read_journal(folder / "journal.jsonl")
+    checkpoints = [r["checkpoint"] for r in contents.records if "checkpoint" in r]
+    per_unit = {}
+    for r in contents.frames():
+        per_unit[r["unit"]] = per_unit.get(r["unit"], 0) + 1
+    return checkpoints, per_unit
+
+
+def test_killed_sweep_resumed_five_times_equals_an_uninterrupted_one(tmp_path):
+    cfg = config_file(tmp_path, SMALL_TOML)
+    whole, cut = tmp_path / "whole", tmp_path / "cut"
+    common = ["--sim", "--config", str(cfg), "--yes", "--pair", "0:80"]
+    subprocess.run(sweep_cmd(*common, "--out", str(whole)), check=True, capture_output=True)
+
+    rng = random.Random(11)
+    events = tmp_path / "cut.events"
+    proc = subprocess.Popen(sweep_cmd(*common, "--out", str(cut), "--events", str(events)),
+                            stdout=subprocess.DEVNULL, stderr=subprocess.PIPE, text=True)
+    wait_for_sweep(events, proc)
+    kills = 0
+    while True:
+        time.sleep(rng.uniform(0.05, 0.8))
+        if proc.poll() is not None:
+            break
+        proc.send_signal(signal.SIGKILL)
+        proc.wait()
+        kills += 1
+        if kills == 5:
+            break
+        proc = subprocess.Popen(sweep_cmd("--resume", str(cut)), stdout=subprocess.DEVNULL,
+                                stderr=subprocess.PIPE, text=True)
+        time.sleep(0.3)
+    assert kills == 5, "the sweep finished before five kills; kill sooner"
+    final = subprocess.run(sweep_cmd("--resume", str(cut)), capture_output=True, text=True)
+    assert final.returncode == 0, final.stderr
+
+    assert (cut / "phase.csv").read_text() == (whole / "phase.csv").read_text()
+    checkpoints, per_unit = unit_counts(cut)
+    assert len(checkpoints) == len(set(checkpoints))  # no unit measured twice
+    whole_checkpoints, _ = unit_counts(whole)
+    assert sorted(checkpoints) == sorted(whole_checkpoints)  # none missing
+    assert set(per_unit.values()) == {2}  # frames per level, no duplicates
+    info = json.loads((cut / "run.json").read_text())
+    assert info["status"] == "complete" and info["sessions"] >= 6
+
+
+def test_sweep_completes_through_timeouts_and_incomplete_frames(tmp_path):
+    cfg = config_file(tmp_path, SMALL_TOML + "[simulator.faults]\ntimeout_rate = 0.05\ncorrupt_rate = 0.01\n"
+                      "[sweep]\nlevels = [" + ", ".join(map(str, range(0, 256, 2))) + "]\n")
+    run = tmp_path / "run"
+    assert main(["sweep", "--sim", "--config", str(cfg), "--out", str(run), "--yes", "--pair", "0:80"]) == 0
+    contents = read_journal(run / "journal.jsonl")
+    faults = [r["fault"] for r in contents.records if "fault" in r]
+    info = json.loads((run / "run.json").read_text())
+    assert faults.count("timeout") == info["faults"]["timeout"] > 0
+    assert faults.count("incomplete") == info["faults"]["incomplete"] > 0
+    levels = sorted({r["gray"] for r in contents.frames() if r["purpose"] == "level"})
+    assert levels == list(range(0, 256, 2))
+    assert [int(r["gray"]) for r in read_csv(run / "phase.csv")] == levels
+
+
+def test_camera_that_dies_stops_cleanly_and_the_run_resumes(tmp_path, capsys):
+    cfg = config_file(tmp_path, SMALL_TOML + "[simulator.faults]\ndie_after_frames = 200\n")
+    run = tmp_path / "run"
+    assert main(["sweep", "--sim", "--config", str(cfg), "--out", str(run), "--yes", "--pair", "0:80"]) == 3
+    err = capsys.readouterr().err
+    assert "camera" in err and "disconnected" in err and str(run) in err
+    info = json.loads((run / "run.json").read_text())
+    assert info["status"] == "failed" and "camera" in info["message"]
+    measured = len(read_journal(run / "journal.jsonl").checkpoints())
+    assert measured > 50
+    for _ in range(6):  # the simulated camera dies every 200 frames; each resume gets further
+        code = main(["sweep", "--resume", str(run)])
+        if code == 0:
+            break
+        assert code == 3
+    assert code == 0
+    assert len(read_journal(run / "journal.jsonl").checkpoints()) == 256 + 17
+
+
+def test_ctrl_c_stops_after_the_level_and_leaves_the_run_resumable(tmp_path):
+    cfg = config_file(tmp_path, SMALL_TOML)
+    run, events = tmp_path / "run", tmp_path / "events"
+    proc = subprocess.Popen(sweep_cmd("--sim", "--config", str(cfg), "--yes", "--pair", "0:80", "--out", str(run),
+                                      "--events", str(events)), stdout=subprocess.PIPE, stderr=subprocess.PIPE,
+                            text=True)
+    wait_for_sweep(events, proc)
+    time.sleep(0.3)
+    proc.send_signal(signal.SIGINT)
+    out, err = proc.communicate(timeout=60)
+    assert proc.returncode == 130, err
+    assert "Resume with: fringecal sweep --resume" in err and "Traceback" not in err
+    assert json.loads((run / "run.json").read_text())["status"] == "interrupted"
+    checkpoints, per_unit = unit_counts(run)
+    assert 0 < len(checkpoints) < 256 + 17 and set(per_unit.values()) == {2}
+    done = subprocess.run(sweep_cmd("--resume", str(run)), capture_output=True, text=True)
+    assert done.returncode == 0, done.stderr
+
+
+@pytest.mark.parametrize("args, fragment", [
+    (["sweep", "--sim", "--pair", "0-80"], "--pair: expected LOW:HIGH"),
+    (["sweep", "--sim", "--pair", "0:300"], "--pair: expected two different gray levels in [0, 255]"),
+    (["sweep", "--resume", "nowhere"], "--resume: nowhere holds no run.json"),
+    (["run", "--sim", "--out", "no/such/parent/run"], "--out: folder no/such/parent does not exist"),
+])
+def test_bad_run_input_is_one_line_and_exit_2(tmp_path, args, fragment):
+    out = subprocess.run([sys.executable, "-m", "rig.cli", *args], capture_output=True, text=True, cwd=tmp_path)
+    assert out.returncode == 2, out.stderr
+    lines = [l for l in out.stderr.strip().splitlines() if l]
+    assert len(lines) == 1 and fragment in lines[0]
+
+
+def test_an_existing_run_folder_is_never_overwritten(tmp_path):
+    run = tmp_path / "run"
+    run.mkdir()
+    (run / "run.json").write_text("{}")
+    out = subprocess.run([sys.executable, "-m", "rig.cli", "run", "--sim", "--out", str(run)], capture_output=True,
+                         text=True)
+    assert out.returncode == 2 and "already holds a run" in out.stderr
+    assert (run / "run.json").read_text() == "{}"
