@@ -2,10 +2,8 @@
 
 from __future__ import annotations
 
-import csv
 import json
 import math
-import platform
 import sys
 from pathlib import Path
 
@@ -16,8 +14,9 @@ from analysis.carrier import NoFringesError
 from analysis.curve import CurveError, phase_curve
 from analysis.fringe import DEFAULT_METHOD, METHODS, estimate, lsq_model
 from analysis.imageio import DEFAULT_NAME_PATTERN, ImageFolderError, list_images, read_image
-from rig import __version__
 from rig.errors import UsageError
+from rig.results import curve_summary, plot_curve, write_json, write_phase_csv
+from rig.runfolder import versions
 
 BAND_SAMPLES = 8        # frames at distinct grays used to find the band
 PROGRESS_FROM = 20      # show a progress bar for folders of at least this many images
@@ -25,7 +24,9 @@ PROGRESS_FROM = 20      # show a progress bar for folders of at least this many 
 
 def register(command) -> None:
     p = command("analyze", cmd_analyze, "phase-vs-gray curve from a folder of fringe images")
-    p.add_argument("source", metavar="SOURCE", help="folder with manifest.csv (gray,file[,time_s]) or images named by gray")
+    p.add_argument("source", metavar="SOURCE",
+                   help="a run folder written by fringecal, a folder with manifest.csv (gray,file[,time_s]), "
+                        "or a folder of images named by gray")
     p.add_argument("--out", required=True, metavar="DIR", help="folder for phase.csv, analysis.json and phase.png")
     p.add_argument("--roi", metavar="x0:x1,y0:y1", help="fringe band in image pixels (default: found automatically)")
     p.add_argument("--method", default=DEFAULT_METHOD, choices=METHODS, help=f"phase estimator (default {DEFAULT_METHOD})")
@@ -120,10 +121,13 @@ def _analyze(args, out: Path) -> int:
         warnings.append("no drift correction: the reference gray was measured in fewer than two visits")
 
     out.mkdir(parents=True, exist_ok=True)
-    _write_csv(out / "phase.csv", curve)
-    summary = _summary(args, records, survey, curve, warnings, full_scale)
-    (out / "analysis.json").write_text(json.dumps(summary, indent=2) + "\n", encoding="utf-8")
-    _plot(out / "phase.png", curve, args.method)
+    write_phase_csv(out / "phase.csv", curve)
+    summary = {"source": str(args.source), "images": len(records),
+               **curve_summary(curve, survey, survey.carrier, args.method, warnings,
+                               "time_s" if records[0].time_s is not None else "image index", not args.roi),
+               "camera_full_scale_adu": full_scale, "versions": versions()}
+    write_json(out / "analysis.json", summary)
+    plot_curve(out / "phase.png", curve, args.method)
     for w in warnings:
         print(f"fringecal: warning: {w}", file=sys.stderr)
     if args.json:
@@ -176,56 +180,3 @@ class _progress:
         if self.bar is not None:
             self.bar.stop()
         return False
-
-
-def _write_csv(path: Path, curve) -> None:
-    with path.open("w", newline="") as fh:
-        writer = csv.writer(fh)
-        writer.writerow(["gray", "phase_rad", "phase_std_rad", "contrast", "n_frames"])
-        for g, p, s, c, n in zip(curve.gray, curve.phase_rad, curve.std_rad, curve.contrast, curve.n_frames):
-            writer.writerow([int(g), f"{p:.6f}", f"{s:.6f}", f"{c:.4f}", int(n)])
-
-
-def _summary(args, records, survey, curve, warnings, full_scale) -> dict:
-    import cv2
-    import scipy
-
-    s, b, c = curve.summary, survey.band, survey.carrier
-    drift = None
-    if curve.drift is not None:
-        d = curve.drift
-        drift = {"model": f"polynomial of degree {len(d.coefficients) - 1} in time", "t0_s": d.t0_s,
-                 "coefficients_rad_per_s_power": list(d.coefficients), "reference_visits": d.n_visits,
-                 "span_rad": d.span_rad, "time_base": "time_s" if records[0].time_s is not None else "image index"}
-    return {
-        "source": str(args.source), "images": len(records), "method": args.method,
-        "roi": {"x0": b.x0, "x1": b.x1, "y0": b.y0, "y1": b.y1, "automatic": not args.roi},
-        "carrier": {"period_px": c.period_px, "angle_deg": c.angle_deg, "sharpness": c.sharpness},
-        "fringe_count": survey.fringe_count, "period_spread": survey.period_spread,
-        "band_contrast": survey.contrast, "camera_full_scale_adu": full_scale,
-        "reference_gray": curve.reference_gray, "sign": curve.sign, "drift": drift,
-        "range_rad": s.range_rad, "range_pi": s.range_pi, "first_gray_2pi": s.first_gray_2pi,
-        "smooth_rms_rad": s.smooth_rms_rad, "worst_std_rad": s.worst_std_rad, "worst_std_gray": s.worst_std_gray,
-        "rejected_grays": list(curve.rejected_grays), "warnings": warnings,
-        "versions": {"fringecal": __version__, "python": platform.python_version(), "numpy": np.__version__,
-                     "scipy": scipy.__version__, "opencv": cv2.__version__},
-    }
-
-
-def _plot(path: Path, curve, method: str) -> None:
-    import matplotlib
-    matplotlib.use("Agg")
-    import matplotlib.pyplot as plt
-
-    fig, ax = plt.subplots(figsize=(7, 4.5), dpi=110)
-    ax.errorbar(curve.gray, curve.phase_rad / np.pi, yerr=curve.std_rad / np.pi, fmt=".", ms=3, capsize=1.5,
-                label=f"measured ({method})")
-    if curve.smooth_rad is not None:
-        ax.plot(curve.gray, curve.smooth_rad / np.pi, "-", lw=1, label="monotone fit")
-    ax.set_xlabel("gray level")
-    ax.set_ylabel(f"phase relative to gray {curve.reference_gray} (π rad)")
-    ax.grid(alpha=0.3)
-    ax.legend(loc="upper left")
-    fig.tight_layout()
-    fig.savefig(path)
-    plt.close(fig)

@@ -27,7 +27,8 @@ def write_phase_csv(path: Path, curve) -> Path:
     return write_atomic(path, buf.getvalue().encode())
 
 
-def curve_summary(curve, survey_or_band, carrier, method: str, warnings: list[str], time_base: str) -> dict:
+def curve_summary(curve, survey_or_band, carrier, method: str, warnings: list[str], time_base: str,
+                  automatic_roi: bool = True) -> dict:
     """The analysis.json figures of a curve measured in a band at a carrier."""
     s = curve.summary
     band = getattr(survey_or_band, "band", survey_or_band)
@@ -39,7 +40,7 @@ def curve_summary(curve, survey_or_band, carrier, method: str, warnings: list[st
                  "span_rad": d.span_rad, "time_base": time_base}
     out = {
         "method": method,
-        "roi": {"x0": band.x0, "x1": band.x1, "y0": band.y0, "y1": band.y1},
+        "roi": {"x0": band.x0, "x1": band.x1, "y0": band.y0, "y1": band.y1, "automatic": automatic_roi},
         "carrier": {"period_px": carrier.period_px, "angle_deg": carrier.angle_deg, "sharpness": carrier.sharpness},
         "reference_gray": curve.reference_gray, "sign": curve.sign, "drift": drift,
         "range_rad": s.range_rad, "range_pi": s.range_pi, "first_gray_2pi": s.first_gray_2pi,

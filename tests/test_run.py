@@ -220,3 +220,15 @@ def test_an_existing_run_folder_is_never_overwritten(tmp_path):
                          text=True)
     assert out.returncode == 2 and "already holds a run" in out.stderr
     assert (run / "run.json").read_text() == "{}"
+
+
+def test_analyze_reads_a_run_folder_and_agrees_with_the_run(tmp_path):
+    cfg = config_file(tmp_path, SMALL_TOML + "[sweep]\nlevels = [" + ", ".join(map(str, range(0, 256, 5))) + "]\n")
+    run, again = tmp_path / "run", tmp_path / "again"
+    assert main(["sweep", "--sim", "--config", str(cfg), "--out", str(run), "--yes", "--pair", "0:80"]) == 0
+    assert main(["analyze", str(run), "--out", str(again)]) == 0
+    first, second = read_csv(run / "phase.csv"), read_csv(again / "phase.csv")
+    assert [r["gray"] for r in first] == [r["gray"] for r in second]
+    diff = np.array([float(a["phase_rad"]) - float(b["phase_rad"]) for a, b in zip(first, second)])
+    assert np.max(np.abs(diff - diff.mean())) < 0.02
+    assert json.loads((again / "analysis.json").read_text())["drift"]["time_base"] == "time_s"
