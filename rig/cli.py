@@ -26,9 +26,13 @@ Without --config, --sim commands use the demo bench configs/tweezers-1064.toml.
 """
 
 EPILOG = """\
-examples:
-  fringecal preview --sim --mirror-gray 64 --out frame.png --view frame-view.png
-  fringecal sim-truth --config configs/tweezers-780.toml --out truth-780.csv
+a typical session:
+  fringecal plan --config my-bench.toml            distances and grating period before moving a mount
+  fringecal run --sim --yes                        the whole calibration, here on the simulated bench
+  fringecal sweep --resume runs/20261201-101500    finish a sweep that was interrupted
+  fringecal analyze my-images/ --out result/       a phase curve from images taken with other software
+  fringecal lut result/phase.csv --out table/      the lookup table in five formats
+  fringecal preview --sim --mirror-gray 80 --out frame.png --view frame-view.png
 """
 
 

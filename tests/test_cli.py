@@ -19,7 +19,7 @@ def run(*args):
 def test_help_teaches_the_method_and_lists_commands():
     out = run("--help")
     assert out.returncode == 0
-    for word in ("split-screen", "preview", "sim-truth", "--sim", "examples:"):
+    for word in ("split-screen", "preview", "sim-truth", "run", "--sim", "a typical session:"):
         assert word in out.stdout
 
 
