@@ -1,0 +1,99 @@
+"""Reading finished results back: a run folder, a folder holding a phase.csv, or a phase.csv itself.
+
+A source may end in ``@NM`` to give (or override) its wavelength in nm, for results that do not record one:
+``result/phase.csv@780``. Run folders record theirs in run.json.
+"""
+
+from __future__ import annotations
+
+import json
+import math
+from dataclasses import dataclass
+from pathlib import Path
+
+from analysis.dispersion import Calibration
+from rig.errors import UsageError
+from rig.lut_cmd import MeasuredCurve, read_phase_csv
+
+
+@dataclass(frozen=True, eq=False)
+class Result:
+    """A measured curve with where it came from: its folder, run.json (empty if none) and wavelength (nm)."""
+
+    label: str
+    folder: Path
+    curve: MeasuredCurve
+    info: dict
+    wavelength_nm: float | None
+
+    def calibration(self, what: str) -> Calibration:
+        """The curve as a Calibration; raise UsageError (naming ``what``) when no wavelength is known."""
+        if self.wavelength_nm is None:
+            raise UsageError(f"{what}: {self.label} records no wavelength; append it as {self.label}@NM")
+        c = self.curve
+        return Calibration(self.wavelength_nm, c.gray, c.phase_rad, c.phase_std_rad)
+
+
+def read_json_file(path: Path, what: str) -> dict:
+    """A JSON object from ``path`` ({} when the file is missing); UsageError when it is damaged."""
+    try:
+        doc = json.loads(path.read_text(encoding="utf-8"))
+    except FileNotFoundError:
+        return {}
+    except (json.JSONDecodeError, UnicodeDecodeError) as err:
+        raise UsageError(f"{what}: {path} is not valid JSON ({err})") from None
+    if not isinstance(doc, dict):
+        raise UsageError(f"{what}: {path}: expected a JSON object")
+    return doc
+
+
+def read_result(spec: str, what: str) -> Result:
+    """Read ``spec`` (see the module docstring); ``what`` names the argument in error messages."""
+    text, wavelength = spec, None
+    if "@" in spec:
+        text, _, nm = spec.rpartition("@")
+        try:
+            wavelength = float(nm)
+        except ValueError:
+            wavelength = math.nan
+        if not (math.isfinite(wavelength) and wavelength > 0):
+            raise UsageError(f"{what}: expected PATH@NM with a wavelength > 0 nm, got {spec!r}")
+    path = Path(text)
+    if path.is_dir():
+        folder, csv_path = path, path / "phase.csv"
+    else:
+        folder, csv_path = path.parent, path
+    if not csv_path.is_file():
+        raise UsageError(f"{what}: no phase.csv at {csv_path} (expected a run folder, a folder with phase.csv, "
+                         "or a phase.csv file)")
+    info = read_json_file(folder / "run.json", what)
+    if wavelength is None and info.get("wavelength_nm") is not None:
+        wavelength = float(info["wavelength_nm"])
+    return Result(text, folder, read_phase_csv(csv_path), info, wavelength)
+
+
+def bit_depth_of(results: list[Result], default: int = 8) -> int:
+    """The panel's gray-level bits from the first run.json that records a config (else ``default``)."""
+    for r in results:
+        bits = r.info.get("config", {}).get("modulator", {}).get("bit_depth")
+        if bits is not None:
+            return int(bits)
+    return default
+
+
+def panel_differences(results: list[Result]) -> list[str]:
+    """Warnings for results whose run.json describes a different panel (size, pitch, bits, cell) than the first."""
+    keys = (("modulator", "width_px"), ("modulator", "height_px"), ("modulator", "pitch_um"),
+            ("modulator", "bit_depth"))
+    described = [r for r in results if "config" in r.info]
+    if len(described) < 2:
+        return []
+    first = described[0]
+    notes = []
+    for r in described[1:]:
+        for section, key in keys:
+            a = first.info["config"].get(section, {}).get(key)
+            b = r.info["config"].get(section, {}).get(key)
+            if a != b:
+                notes.append(f"{r.label} has {section}.{key} = {b}, {first.label} has {a}: is it the same panel?")
+    return notes
