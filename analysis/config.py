@@ -34,6 +34,10 @@ class Modulator:
     pitch_um: float = spec(8.5, lo=0.5, hi=100.0, doc="pixel pitch")
     bit_depth: int = spec(8, lo=8, hi=12, doc="gray-level bits")
     display: int | str = spec("auto", doc="display index, display name, or 'auto' (match the panel's size)")
+    allow_primary: bool = spec(False, doc="let the pattern window cover the desktop's primary display")
+    rgb_shift_bits: tuple[int, int, int] = spec((0, 0, 0), lo=-15, hi=15,
+                                                doc="right shift of the gray into red, green, blue (negative: left); "
+                                                    "each channel keeps its low 8 bits")
 
 
 @dataclass(frozen=True)
@@ -54,6 +58,11 @@ class Camera:
     bit_depth: int = spec(12, lo=8, hi=16, doc="ADC bits")
     exposure_s: float = spec(0.0015, lo=1e-6, hi=10.0, doc="exposure time")
     gain_db: float = spec(0.0, lo=0.0, hi=48.0, doc="analogue gain")
+    device: str = spec("", doc="opencv: device index, file or URL ('': device 0); replay: image folder; "
+                               "module:Class: handed to the class")
+    discard_frames: int = spec(0, lo=0, hi=1000,
+                               doc="frames thrown away after every pattern change (for timestamps off the bench clock)")
+    grab_timeout_s: float = spec(2.0, lo=0.01, hi=600.0, doc="longest wait for one frame")
 
 
 @dataclass(frozen=True)
@@ -147,6 +156,62 @@ class Faults:
     die_after_frames: int = spec(0, lo=0, hi=10**9, doc="camera disconnects after this many frames (0: never)")
 
 
+TERMINATORS = ("\n", "\r", "\r\n")
+
+
+@dataclass(frozen=True)
+class SerialLink:
+    port: str = spec("", doc="serial port such as /dev/ttyUSB0 ('': not fitted)")
+    baud: int = spec(9600, lo=300, hi=4_000_000, doc="baud rate")
+    write_terminator: str = spec("\n", choices=TERMINATORS, doc="ends every command sent")
+    read_terminator: str = spec("\n", choices=TERMINATORS, doc="ends every reply")
+    timeout_s: float = spec(1.0, lo=0.01, hi=60.0, doc="longest wait for one reply")
+    retries: int = spec(2, lo=0, hi=10, doc="repeats of a query that timed out or got a garbled reply")
+    identify_command: str = spec("*IDN?", doc="query answered with the instrument's identity ('': none)")
+
+
+@dataclass(frozen=True)
+class Shutter(SerialLink):
+    open_command: str = spec("SHUT:OPEN", doc="command that opens the shutter")
+    close_command: str = spec("SHUT:CLOS", doc="command that closes the shutter")
+    state_command: str = spec("SHUT?", doc="query of the shutter state ('': trust the commands)")
+    open_reply: str = spec("1", doc="state reply of an open shutter")
+    closed_reply: str = spec("0", doc="state reply of a closed shutter")
+    move_s: float = spec(0.05, lo=0.0, hi=10.0, doc="time the blade takes to move")
+    dark_frames: int = spec(4, lo=1, hi=100, doc="frames averaged into the dark frame")
+
+
+@dataclass(frozen=True)
+class PowerMeter(SerialLink):
+    measure_command: str = spec("MEAS:POW?", doc="query answered with the power in W")
+    drift_fraction: float = spec(0.05, lo=0.0, hi=10.0, lo_open=True,
+                                 doc="warn when the power moves this fraction from its first reading")
+
+
+@dataclass(frozen=True)
+class Rotator(SerialLink):
+    move_command: str = spec("ROT:MOVE {angle_deg}", doc="command that starts a move ({angle_deg} is replaced)")
+    position_command: str = spec("ROT:POS?", doc="query answered with the angle in degrees")
+    angle_deg: float = spec(0.0, lo=-360.0, hi=360.0, doc="angle to set before a run (half-wave plate)")
+    tolerance_deg: float = spec(0.1, lo=0.001, hi=10.0, doc="a move is done within this angle of its target")
+    move_timeout_s: float = spec(30.0, lo=0.1, hi=600.0, doc="longest wait for a move")
+
+
+@dataclass(frozen=True)
+class Thermometer(SerialLink):
+    measure_command: str = spec("MEAS:TEMP?", doc="query answered with the temperature in degrees C")
+    drift_c: float = spec(0.5, lo=0.0, hi=100.0, lo_open=True,
+                          doc="warn when the temperature moves this far from its first reading")
+
+
+@dataclass(frozen=True)
+class Accessories:
+    shutter: Shutter = field(default_factory=Shutter)
+    power_meter: PowerMeter = field(default_factory=PowerMeter)
+    rotator: Rotator = field(default_factory=Rotator)
+    thermometer: Thermometer = field(default_factory=Thermometer)
+
+
 @dataclass(frozen=True)
 class Simulator:
     seed: int = spec(1, lo=0, hi=2**63 - 1, doc="seed of every random draw")
@@ -165,6 +230,7 @@ class Config:
     geometry: Geometry = field(default_factory=Geometry)
     pattern: Pattern = field(default_factory=Pattern)
     sweep: Sweep = field(default_factory=Sweep)
+    accessories: Accessories = field(default_factory=Accessories)
     simulator: Simulator = field(default_factory=Simulator)
     source: str = field(default="<defaults>", compare=False)
 
@@ -267,6 +333,10 @@ def _check(value, hint, meta, source, path):
         if type(value) is int and value >= 0 or isinstance(value, str) and value:
             return value
         fail("a display index (integer >= 0), a display name, or 'auto'")
+    if path == "modulator.rgb_shift_bits":
+        if not (isinstance(value, list) and len(value) == 3 and all(type(v) is int and lo <= v <= hi for v in value)):
+            fail(f"a list of 3 integer shifts in [{lo}, {hi}]")
+        return tuple(value)
     origin = typing.get_origin(hint)
     if origin is tuple:
         n = len(typing.get_args(hint))
