@@ -36,8 +36,10 @@ a typical session:
 """
 
 
-COMMAND_MODULES: tuple[str, ...] = ("rig.run_cmd", "rig.analyze_cmd", "rig.lut_cmd", "rig.pattern_cmd", "rig.plan_cmd",
-                                   "rig.compare_cmd", "rig.screens_cmd")
+COMMAND_MODULES: tuple[str, ...] = (
+    "rig.run_cmd", "rig.align_cmd", "rig.analyze_cmd", "rig.lut_cmd", "rig.pattern_cmd", "rig.plan_cmd",
+    "rig.compare_cmd", "rig.screens_cmd",
+)
 
 
 def load_bench_config(args) -> Config:

@@ -141,19 +141,26 @@ class Bench:
         self._states: collections.deque[PanelState] = collections.deque(maxlen=6)
         self._lock = threading.Lock()
 
-        theta = np.deg2rad(sim.response.polarization_deg)
-        self.aligned_amp = float(np.cos(theta))
-        unaligned = float(np.sin(theta)) ** 2
-        self.background = np.float32(sim.noise.stray_light) * np.float32(np.max(np.abs(self.beam)) ** 2)
         blank = np.zeros((m.height_px, m.width_px), np.uint16)
         whole = np.ones(blank.shape, bool)
-        key = _mask_key(whole)
-        self._ensure_basis(key, whole)
-        if unaligned > 1e-12:
-            mirror = self._basis[key].fields[:, 0]
-            self.background = self.background + unaligned * (np.abs(mirror) ** 2).astype(np.float32)
+        self._whole_key = _mask_key(whole)
+        self._ensure_basis(self._whole_key, whole)
+        self.set_polarization_deg(sim.response.polarization_deg)
         r0 = float(self.response.retardance_rad(0))
-        self._states.append(PanelState(-math.inf, blank.astype(np.int32), (Region(0, r0, r0, -math.inf, key),), blank))
+        self._states.append(PanelState(-math.inf, blank.astype(np.int32),
+                                       (Region(0, r0, r0, -math.inf, self._whole_key),), blank))
+
+    def set_polarization_deg(self, angle_deg: float) -> None:
+        """Turn the incident polarisation to ``angle_deg`` from the director (what a half-wave plate does)."""
+        theta = np.deg2rad(angle_deg)
+        self.polarization_deg = float(angle_deg)
+        self.aligned_amp = float(np.cos(theta))
+        unaligned = float(np.sin(theta)) ** 2
+        stray = np.float32(self.cfg.simulator.noise.stray_light) * np.float32(np.max(np.abs(self.beam)) ** 2)
+        self.background = stray
+        if unaligned > 1e-12:  # the unmodulated part reflects from the whole panel as from a mirror
+            mirror = self._basis[self._whole_key].fields[:, 0]
+            self.background = stray + np.float32(unaligned) * (np.abs(mirror) ** 2).astype(np.float32)
 
     # --- panel -----------------------------------------------------------------------------------------------
     def show(self, pattern: np.ndarray) -> None:
@@ -244,7 +251,7 @@ class Bench:
         cx = float((power.sum(axis=0) * centred_coords_um(m.width_px, m.pitch_um)).sum() / total)
         cy = float((power.sum(axis=1) * centred_coords_um(m.height_px, m.pitch_um)).sum() / total)
         self._basis[key] = RegionBasis(np.ascontiguousarray(fields), (cx, cy))
-        in_use = {r.key for state in self._states for r in state.regions} | {key}
+        in_use = {r.key for state in self._states for r in state.regions} | {key, self._whole_key}
         for old in [k for k in self._basis if k not in in_use][: max(len(self._basis) - self._basis_limit, 0)]:
             del self._basis[old]
 

@@ -1,0 +1,206 @@
+"""``fringecal align``: a live view for aligning the bench — contrast, exposure, fringe period and hints."""
+
+from __future__ import annotations
+
+import contextlib
+import os
+import select
+import sys
+import time
+from dataclasses import dataclass, field
+
+import cv2
+import numpy as np
+from rich.console import Console, Group
+from rich.live import Live
+from rich.panel import Panel
+from rich.table import Table
+from rich.text import Text
+
+from analysis.alignment import AlignmentFigures, alignment_figures, hint
+from analysis.patterns import layout_of, split_screen
+from rig.cli import load_bench_config
+from rig.errors import UsageError
+from rig.run_cmd import open_devices
+from rig.safety import add_acknowledgement_flag, ensure_laser_safety
+
+SHADES = " .:-=+*#%@"
+KEY_HELP = "keys: + / - grating high gray, ] / [ exposure x1.25 / /1.25, q quit"
+
+
+def register(command) -> None:
+    p = command("align", cmd_align, "live alignment view: contrast, exposure, fringe period, hints")
+    p.add_argument("--sim", action="store_true", help="use the built-in simulated bench")
+    p.add_argument("--seconds", type=float, metavar="S",
+                   help="stop after S seconds (default: until q; 10 s when input is not a terminal)")
+    p.add_argument("--rate", type=float, default=4.0, metavar="HZ", help="updates per second (default 4)")
+    p.add_argument("--mirror-gray", type=int, metavar="G", help="gray of the mirror half (default the reference)")
+    add_acknowledgement_flag(p)
+
+
+def text_image(image: np.ndarray, width: int = 64, height: int = 16) -> list[str]:
+    """A coarse picture of a camera frame in characters, darkest to brightest: SHADES."""
+    small = cv2.resize(np.asarray(image, np.float32), (width, height), interpolation=cv2.INTER_AREA)
+    lo, hi = float(small.min()), float(small.max())
+    levels = np.zeros_like(small, int) if hi <= lo else ((small - lo) / (hi - lo) * (len(SHADES) - 1)).round()
+    return ["".join(SHADES[int(v)] for v in row) for row in levels]
+
+
+@dataclass
+class AlignState:
+    """What the view shows, updated once a frame."""
+
+    low: int
+    high: int
+    mirror_gray: int
+    exposure_s: float
+    figures: AlignmentFigures | None = None
+    best_contrast: float = 0.0
+    frames: int = 0
+    picture: list[str] = field(default_factory=list)
+    done: bool = False
+
+
+def apply_key(key: str, state: AlignState, gray_max: int) -> bool:
+    """Change the state for one key press; return True when the pattern or exposure must be set again."""
+    if key == "q":
+        state.done = True
+    elif key in "+=":
+        state.high = min(state.high + 1, gray_max)
+    elif key in "-_":
+        state.high = max(state.high - 1, 0)
+    elif key == "]":
+        state.exposure_s *= 1.25
+    elif key == "[":
+        state.exposure_s /= 1.25
+    else:
+        return False
+    return not state.done
+
+
+class TerminalKeys:
+    """Single key presses from a terminal without waiting (cbreak mode, restored on exit)."""
+
+    def __enter__(self):
+        import termios
+        import tty
+        self._fd = sys.stdin.fileno()
+        self._saved = termios.tcgetattr(self._fd)
+        tty.setcbreak(self._fd)
+        return self
+
+    def __exit__(self, *exc):
+        import termios
+        termios.tcsetattr(self._fd, termios.TCSADRAIN, self._saved)
+
+    def poll(self) -> list[str]:
+        keys = []
+        while select.select([self._fd], [], [], 0)[0]:
+            keys.append(os.read(self._fd, 1).decode(errors="ignore"))
+        return keys
+
+
+class NoKeys(contextlib.nullcontext):
+    """The key source when input is not a terminal: nothing is ever pressed."""
+
+    def poll(self) -> list[str]:
+        return []
+
+
+def render(state: AlignState):
+    fig = state.figures
+    table = Table.grid(padding=(0, 2))
+    table.add_column(style="bold")
+    table.add_column()
+    table.add_row("pattern", f"mirror gray {state.mirror_gray}, grating {state.low}/{state.high}")
+    table.add_row("exposure", f"{state.exposure_s * 1e3:.3f} ms")
+    if fig is not None:
+        peak = Text(f"{100 * fig.peak_fraction:.0f} % of full scale")
+        if fig.saturated_px:
+            peak.append(f"  SATURATED: {fig.saturated_px} px", style="bold red")
+        table.add_row("contrast", f"{fig.contrast:.3f}   (best so far {state.best_contrast:.3f})")
+        table.add_row("peak", peak)
+        if fig.period_px is not None:
+            table.add_row("fringes", f"period {fig.period_px:.2f} px at {fig.angle_deg:.1f} deg, "
+                                     f"{fig.fringe_count:.0f} across the band")
+            table.add_row("uniformity", f"period varies {100 * fig.period_spread:.1f} % rms across the band")
+        table.add_row("hint", Text(hint(fig), style="bold"))
+    return Panel(Group(table, Text("\n".join(state.picture)), Text(KEY_HELP, style="dim")),
+                 title=f"fringecal align — frame {state.frames}", title_align="left")
+
+
+def align_loop(cfg, devices, state: AlignState, keys, update, seconds: float, rate_hz: float) -> AlignState:
+    """Grab, measure and show until ``seconds`` pass or q is pressed."""
+    m, p = cfg.modulator, cfg.pattern
+    camera, clock = devices.camera, devices.clock
+    full_scale = 2**camera.bit_depth - 1
+
+    def apply():
+        camera.exposure_s = state.exposure_s
+        devices.screen.show(split_screen(m.width_px, m.height_px, state.mirror_gray, state.low, state.high,
+                                         layout_of(p), m.bit_depth))
+        clock.sleep(cfg.sweep.settle_s)
+
+    apply()
+    end = time.monotonic() + seconds
+    while not state.done and time.monotonic() < end:
+        started = time.monotonic()
+        changed = False
+        for key in keys.poll():
+            changed |= apply_key(key, state, cfg.gray_max)
+        if state.done:
+            break
+        if changed:
+            try:
+                apply()
+            except ValueError as err:  # an exposure the camera refuses: keep the last one
+                state.exposure_s = camera.exposure_s
+                update(state, f"camera: {err}")
+        frame = camera.grab(timeout_s=2.0)
+        state.figures = alignment_figures(frame.image, full_scale, cfg.simulator.noise.dark_offset_adu
+                                          if devices.bench is not None else 0.0)
+        state.best_contrast = max(state.best_contrast, state.figures.contrast)
+        state.frames += 1
+        state.picture = text_image(frame.image)
+        update(state, None)
+        time.sleep(max(0.0, 1.0 / rate_hz - (time.monotonic() - started)))
+    return state
+
+
+def cmd_align(args) -> int:
+    """Show the split pattern and update contrast, exposure, fringe period and orientation, their uniformity, a
+    coarse picture of the camera image and a hint for the likeliest fault, several times a second."""
+    cfg = load_bench_config(args)
+    if args.rate <= 0:
+        raise UsageError(f"--rate: expected updates per second above 0, got {args.rate}")
+    if args.seconds is not None and args.seconds <= 0:
+        raise UsageError(f"--seconds: expected a duration above 0, got {args.seconds}")
+    gray = cfg.sweep.reference_gray if args.mirror_gray is None else args.mirror_gray
+    if not 0 <= gray <= cfg.gray_max:
+        raise UsageError(f"--mirror-gray: expected a gray level in [0, {cfg.gray_max}], got {gray}")
+    ensure_laser_safety(cfg.laser.laser_class, cfg.laser.wavelength_nm, sim=args.sim or cfg.camera.backend == "sim",
+                        acknowledged=args.laser_safety_acknowledged or cfg.laser.safety_acknowledged)
+    interactive = sys.stdin.isatty() and sys.stdout.isatty()
+    seconds = args.seconds if args.seconds is not None else (float("inf") if interactive else 10.0)
+    devices = open_devices(cfg, args.sim)
+    state = AlignState(cfg.pattern.grating_low, cfg.pattern.grating_high, gray, devices.camera.exposure_s)
+    try:
+        if interactive:
+            console = Console()
+            with TerminalKeys() as keys, Live(render(state), console=console, refresh_per_second=8) as live:
+                def update(s, message):
+                    live.update(render(s))
+                    if message:
+                        console.log(message)
+                align_loop(cfg, devices, state, keys, update, seconds, args.rate)
+        else:
+            def update(s, message):
+                f = s.figures
+                print(message or (f"frame {s.frames}: contrast {f.contrast:.3f} (best {s.best_contrast:.3f}), "
+                                  f"peak {100 * f.peak_fraction:.0f} %, "
+                                  + (f"period {f.period_px:.2f} px at {f.angle_deg:.1f} deg; " if f.period_px else "")
+                                  + hint(f)), flush=True)
+            align_loop(cfg, devices, state, NoKeys(), update, seconds, args.rate)
+    finally:
+        devices.close()
+    return 0

@@ -1,0 +1,93 @@
+"""The alignment view: its figures react to polarisation, exposure and the grating pair, and its hints say why."""
+
+import numpy as np
+import pytest
+from conftest import split_for
+
+from analysis.alignment import AlignmentFigures, alignment_figures, hint
+from analysis.config import replace
+from rig.align_cmd import AlignState, align_loop, apply_key, render, text_image
+from rig.cli import main
+from rig.run_cmd import open_devices
+from simulators.bench import Bench
+from simulators.devices import SimCamera
+
+
+def frame_at(cfg, **extra):
+    cfg = replace(cfg, **extra)
+    bench = Bench(cfg)
+    bench.show(split_for(cfg, 0, 0, 80))
+    bench.clock.sleep(0.2)
+    return SimCamera(bench).grab().image
+
+
+def test_contrast_follows_the_polarisation_and_the_hint_names_it(small_cfg):
+    """Only the field along the director is modulated, so the fringe term falls as cos^2 of the angle while the
+    rest adds background: contrast drops, and the hint says to rotate the polarisation."""
+    figs = {a: alignment_figures(frame_at(small_cfg, **{"simulator.response.polarization_deg": a}), 4095, 40.0)
+            for a in (0.0, 50.0, 75.0)}
+    assert figs[0.0].contrast > figs[50.0].contrast > figs[75.0].contrast
+    assert figs[0.0].contrast > 0.8 and "aligned" in hint(figs[0.0])
+    assert "polarisation" in hint(figs[50.0]) and "polarisation" in hint(figs[75.0])
+    period = small_cfg.pattern.grating_period_px * small_cfg.modulator.pitch_um / small_cfg.camera.pitch_um
+    assert figs[0.0].period_px == pytest.approx(period, rel=0.01) and abs(figs[0.0].angle_deg) < 0.2
+
+
+def test_roll_of_the_camera_shows_as_fringe_angle(small_cfg):
+    fig = alignment_figures(frame_at(small_cfg, **{"geometry.camera_roll_deg": 4.0}), 4095, 40.0)
+    assert abs(fig.angle_deg) == pytest.approx(4.0, abs=0.3)
+
+
+def test_saturation_and_underexposure_hints(small_cfg):
+    bright = alignment_figures(frame_at(small_cfg, **{"camera.exposure_s": 0.02}), 4095, 40.0)
+    dim = alignment_figures(frame_at(small_cfg, **{"camera.exposure_s": 0.0001}), 4095, 40.0)
+    assert bright.saturated_px > 0 and "lower the exposure" in hint(bright)
+    assert dim.peak_fraction < 0.25 and "raise the exposure" in hint(dim)
+
+
+class Script:
+    """Keys pressed one per update, like a person at the keyboard."""
+
+    def __init__(self, keys):
+        self.keys = list(keys)
+
+    def poll(self):
+        return [self.keys.pop(0)] if self.keys else []
+
+
+def test_keys_nudge_the_grating_pair_and_exposure_and_quit(small_cfg):
+    devices = open_devices(small_cfg, sim=True)
+    state = AlignState(0, 80, 0, devices.camera.exposure_s)
+    seen = []
+    align_loop(small_cfg, devices, state, Script(["+", "+", "]", "-", "q"]), lambda s, m: seen.append(
+        (s.high, s.exposure_s, s.figures.contrast)), seconds=60, rate_hz=1000)
+    assert state.done and state.high == 81
+    assert state.exposure_s == pytest.approx(small_cfg.camera.exposure_s * 1.25)
+    assert devices.camera.exposure_s == pytest.approx(state.exposure_s)
+    assert [s[0] for s in seen] == [81, 82, 82, 81]
+    assert state.best_contrast == max(s[2] for s in seen)
+    assert not apply_key("x", state, 255)
+
+
+def test_view_renders_figures_picture_and_hint(small_cfg):
+    from rich.console import Console
+    import io
+    image = frame_at(small_cfg)
+    state = AlignState(0, 80, 0, 0.0015, alignment_figures(image, 4095, 40.0), 0.9, 3, text_image(image))
+    console = Console(record=True, width=100, file=io.StringIO(), color_system=None)
+    console.print(render(state))
+    text = console.export_text()
+    for expected in ("grating 0/80", "contrast", "period", "aligned", "keys:"):
+        assert expected in text
+    assert len(state.picture) == 16 and all(len(row) == 64 for row in state.picture)
+    assert len(set("".join(state.picture))) > 4  # fringes show as a spread of shades
+
+
+def test_align_command_without_a_terminal_runs_for_its_seconds(small_cfg, tmp_path, capsys):
+    cfg = tmp_path / "small.toml"
+    cfg.write_text("[modulator]\nwidth_px = 400\nheight_px = 300\n[laser]\npower_mw = 0.25\n[camera]\nwidth_px = 256\n"
+                   "height_px = 200\n[geometry]\ndistance_mm = 40.0\ncamera_offset_mm = [-0.42, 0.0]\n"
+                   "[simulator.beam]\nradius_mm = 1.0\n")
+    assert main(["align", "--sim", "--config", str(cfg), "--seconds", "1", "--rate", "5"]) == 0
+    lines = [l for l in capsys.readouterr().out.splitlines() if l.startswith("frame")]
+    assert 2 <= len(lines) <= 6 and "contrast" in lines[0]
