@@ -275,6 +275,14 @@ def sweep_plan(cfg, low: int, high: int, done: frozenset[str] = frozenset(), see
         yield Checkpoint(key)
 
 
+def hold_plan(cfg, gray: int, low: int, high: int, frames: int):
+    """Hold one split pattern and grab ``frames`` frames back to back; return their Measurement."""
+    yield Stage("flicker", 1)
+    yield ShowSplit(gray, low, high)
+    yield Settle(cfg.sweep.settle_s)
+    return (yield Grab(frames, "flicker", gray, wait=True))
+
+
 def run_seconds(cfg, frame_rate_hz: float) -> float:
     """Lower bound (s) of a sweep's duration: per unit the settle time and its frames at the camera's rate."""
     per_frame = max(1.0 / frame_rate_hz, cfg.camera.exposure_s)

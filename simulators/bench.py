@@ -336,6 +336,17 @@ class Bench:
                   if timing.vibration_urad else (0.0, 0.0))
         return drift + float(jitter[0]), drift + float(jitter[1])
 
+    def fringe_flicker_rad(self, mirror_gray: int, low: int, high: int, exposure_s: float) -> float:
+        """Peak amplitude (rad) of the fringe-phase ripple a camera with ``exposure_s`` sees for a split pattern.
+
+        The grating's first order carries the mean phase of its two stripes, so its ripple is their mean ripple; the
+        fringes show the mirror's ripple less that.
+        """
+        timing = self.cfg.simulator.timing
+        w = self.response.slope_weight
+        return float(timing.flicker_rad * abs(np.sinc(timing.flicker_hz * exposure_s))
+                     * abs(w(mirror_gray) - 0.5 * (w(low) + w(high))))
+
     def true_curve(self) -> tuple[np.ndarray, np.ndarray]:
         """Gray levels and the panel's true phase (rad, relative to gray 0) over the illuminated panel."""
         grays, phase = self.response.curve()

@@ -1,0 +1,117 @@
+"""``fringecal flicker``: hold a gray level, grab at the camera's rate and measure the phase flicker."""
+
+from __future__ import annotations
+
+import io
+import json
+
+import numpy as np
+
+from analysis.flicker import flicker_figures
+from analysis.fringe import DEFAULT_METHOD, METHODS
+from rig.atomic import write_atomic
+from rig.errors import UsageError
+from rig.plans import hold_plan
+from rig.results import write_json
+from rig.run_cmd import Session, _guarded, _prepare, auto_exposure, estimate_dark, locate
+from rig.safety import add_acknowledgement_flag
+
+
+def register(command) -> None:
+    p = command("flicker", cmd_flicker, "phase flicker of one gray level: rms, peak to peak, spectrum")
+    p.add_argument("--sim", action="store_true", help="use the built-in simulated bench")
+    p.add_argument("--gray", type=int, required=True, metavar="G", help="gray level of the mirror half to hold")
+    p.add_argument("--seconds", type=float, default=2.0, metavar="S", help="how long to record (default 2)")
+    p.add_argument("--expect-hz", type=float, metavar="F",
+                   help="the panel's drive frequency if known: warns when the frame rate cannot resolve it")
+    p.add_argument("--out", metavar="DIR", help="run folder to create (default: runs/YYYYmmdd-HHMMSS)")
+    p.add_argument("--json", action="store_true", help="print the figures as JSON on stdout")
+    p.add_argument("--events", metavar="FILE", help="also write progress events as JSON lines to FILE")
+    p.add_argument("--method", choices=METHODS, default=DEFAULT_METHOD,
+                   help=f"fringe-phase estimator (default {DEFAULT_METHOD})")
+    p.add_argument("--no-frames", action="store_true", help="do not save the fringe-band crops")
+    add_acknowledgement_flag(p)
+
+
+def cmd_flicker(args) -> int:
+    """Hold the split pattern at one mirror gray, grab frames back to back at the camera's rate, extract every
+    frame's fringe phase and report its rms and peak-to-peak flicker, its spectrum and dominant frequency."""
+    if args.seconds <= 0:
+        raise UsageError(f"--seconds: expected a duration above 0, got {args.seconds}")
+    args.yes = True
+    cfg, folder = _prepare(args, "flicker")
+    if not 0 <= args.gray <= cfg.gray_max:
+        raise UsageError(f"--gray: expected a gray level in [0, {cfg.gray_max}], got {args.gray}")
+    low, high = cfg.pattern.grating_low, cfg.pattern.grating_high
+
+    def body():
+        with Session(args, cfg, folder, "fringecal flicker") as s:
+            estimate_dark(s)
+            auto_exposure(s, low, high)
+            locate(s, low, high)
+            rate = getattr(s.devices.camera, "frame_rate_hz", None) or 1.0 / max(s.devices.camera.exposure_s, 1e-3)
+            frames = max(int(round(args.seconds * rate)), 8)
+            m = s.engine.run(hold_plan(cfg, args.gray, low, high, frames))
+            exposure = s.devices.camera.exposure_s
+            bench = s.devices.bench
+        t = np.array([r.t_s for r in m.results])
+        phase = np.array([r.phase_rad for r in m.results])
+        fig = flicker_figures(t, phase, args.expect_hz)
+        summary = {"gray": args.gray, "grating_pair": [low, high], "frames": int(t.size), "exposure_s": exposure,
+                   "rms_rad": fig.rms_rad, "peak_to_peak_rad": fig.peak_to_peak_rad, "dominant_hz": fig.dominant_hz,
+                   "frame_rate_hz": fig.frame_rate_hz, "nyquist_hz": fig.frame_rate_hz / 2,
+                   "spectral_bin_hz": fig.bin_hz, "warnings": _warnings(fig, args.expect_hz)}
+        if bench is not None:
+            amp = bench.fringe_flicker_rad(args.gray, low, high, exposure)
+            summary["simulator_true_rms_rad"] = amp / np.sqrt(2)
+            summary["simulator_ripple_hz"] = cfg.simulator.timing.flicker_hz
+        folder.write_csv("flicker.csv", ["t_s", "phase_rad"], ((f"{a:.9f}", f"{b:.6f}") for a, b in zip(t, phase)))
+        write_json(folder.path / "flicker.json", summary)
+        _plot(folder.path / "flicker.png", t, phase, fig)
+        folder.update(status="complete", flicker=summary)
+        if args.json:
+            print(json.dumps(summary, indent=2))
+        else:
+            print(f"gray {args.gray}: flicker {fig.rms_rad * 1e3:.2f} mrad rms, {fig.peak_to_peak_rad * 1e3:.2f} mrad "
+                  f"peak to peak, dominant {fig.dominant_hz:.2f} Hz, {t.size} frames at {fig.frame_rate_hz:.1f} "
+                  f"frames/s (exposure {exposure * 1e3:.3f} ms); files in {folder.path}")
+            for w in summary["warnings"]:
+                print(f"warning: {w}")
+        return 0
+
+    return _guarded(folder, body)
+
+
+def _warnings(fig, expect_hz) -> list[str]:
+    out = []
+    nyquist = fig.frame_rate_hz / 2
+    if fig.above_nyquist:
+        out.append(f"the drive frequency {expect_hz:g} Hz is above this frame rate's Nyquist limit "
+                   f"({nyquist:.1f} Hz): the flicker is aliased to {fig.dominant_hz:.1f} Hz")
+    elif fig.dominant_hz > 0.8 * nyquist:
+        out.append(f"the dominant frequency {fig.dominant_hz:.1f} Hz is near the Nyquist limit ({nyquist:.1f} Hz); "
+                   "it may be an alias of a faster ripple")
+    return out
+
+
+def _plot(path, t, phase, fig) -> None:
+    import matplotlib
+    matplotlib.use("Agg")
+    import matplotlib.pyplot as plt
+
+    f, (a, b) = plt.subplots(2, 1, figsize=(7, 5.5), dpi=110)
+    a.plot((t - t[0]) * 1e3, (np.unwrap(phase) - np.mean(np.unwrap(phase))) * 1e3, lw=0.7)
+    a.set_xlabel("time (ms)")
+    a.set_ylabel("fringe phase (mrad)")
+    a.grid(alpha=0.3)
+    b.semilogy(fig.freqs_hz[1:], fig.spectrum_rad[1:] * 1e3 + 1e-6, lw=0.7)
+    b.axvline(fig.dominant_hz, color="C3", lw=0.8, label=f"{fig.dominant_hz:.1f} Hz")
+    b.set_xlabel("frequency (Hz)")
+    b.set_ylabel("amplitude (mrad)")
+    b.grid(alpha=0.3)
+    b.legend()
+    f.tight_layout()
+    buf = io.BytesIO()
+    f.savefig(buf, format="png")
+    plt.close(f)
+    write_atomic(path, buf.getvalue())
