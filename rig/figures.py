@@ -77,3 +77,102 @@ def prediction_figure(sources: list[tuple[float, np.ndarray, np.ndarray]], wavel
     ax.legend(fontsize=8)
     fig.tight_layout()
     return _png(fig)
+
+
+def curve_figure(gray, phase, std, smooth, truth=None) -> bytes:
+    """The calibration curve with 2-sigma error bars, its smooth monotone fit and (simulator) the true curve."""
+    fig, (ax,) = _axes()
+    ax.errorbar(gray, phase / np.pi, yerr=2 * std / np.pi, fmt="o", ms=2.2, lw=0.7, capsize=0, color=INK,
+                label="measured (±2σ)")
+    ax.plot(gray, smooth / np.pi, "-", lw=1.1, color=ACCENT, label="smooth monotone fit")
+    if truth is not None:
+        ax.plot(truth[0], truth[1] / np.pi, "--", lw=0.9, color=MUTED, label="simulator truth")
+    ax.axhline(2, color=MUTED, lw=0.6, ls=":")
+    ax.set_xlabel("gray level")
+    ax.set_ylabel("phase (π rad)")
+    ax.legend(fontsize=8, loc="upper left")
+    fig.tight_layout()
+    return _png(fig)
+
+
+def residual_figure(gray, residual, std) -> bytes:
+    """Measured minus smooth fit (mrad) with the measurement's 2-sigma band."""
+    fig, (ax,) = _axes(7.0, 3.2)
+    ax.fill_between(gray, -2e3 * std, 2e3 * std, color=MUTED, alpha=0.3, lw=0, label="±2σ of the measurement")
+    ax.plot(gray, 1e3 * residual, ".", ms=3, color=INK, label="measured − fit")
+    ax.axhline(0, color=ACCENT, lw=0.8)
+    ax.set_xlabel("gray level")
+    ax.set_ylabel("residual (mrad)")
+    ax.legend(fontsize=8, loc="upper right")
+    fig.tight_layout()
+    return _png(fig)
+
+
+def table_figure(target_rad, gray, measured=None) -> bytes:
+    """The lookup table: gray level for each target phase; beside it the measured phase through the table."""
+    fig, axes = _axes(11.0 if measured is not None else 7.0, 3.8, 2 if measured is not None else 1)
+    axes[0].step(target_rad / np.pi, gray, where="post", lw=1.0, color=INK)
+    axes[0].set_xlabel("target phase (π rad)")
+    axes[0].set_ylabel("gray level")
+    axes[0].set_title("lookup table", fontsize=10)
+    if measured is not None:
+        axes[1].plot(target_rad / np.pi, 1e3 * measured, ".", ms=2.5, color=ACCENT)
+        axes[1].set_xlabel("target phase (π rad)")
+        axes[1].set_ylabel("phase error (mrad)")
+        axes[1].set_title("measured curve through the table", fontsize=10)
+    fig.tight_layout()
+    return _png(fig)
+
+
+def tuning_figure(high_gray, contrast, low: int, chosen: int) -> bytes:
+    """Fringe contrast against the grating's high gray (low gray fixed), the chosen pair marked."""
+    order = np.argsort(high_gray)
+    fig, (ax,) = _axes(7.0, 3.4)
+    ax.plot(np.asarray(high_gray)[order], np.asarray(contrast)[order], "o-", ms=3, lw=0.8, color=INK)
+    ax.axvline(chosen, color=ACCENT, lw=1.0, label=f"chosen pair {low}/{chosen}")
+    ax.set_xlabel(f"grating high gray (low gray {low})")
+    ax.set_ylabel("fringe contrast")
+    ax.legend(fontsize=8)
+    fig.tight_layout()
+    return _png(fig)
+
+
+def frame_figure(image, band_xywh: tuple[int, int, int, int], caption: str) -> bytes:
+    """A saved fringe crop (camera counts) with the analysed band outlined."""
+    from matplotlib.patches import Rectangle
+
+    h, w = image.shape
+    fig, ax = plt.subplots(figsize=(6.0, max(2.0, 5.2 * h / w)), dpi=DPI)
+    ax.imshow(image, cmap="gray", interpolation="nearest")
+    x, y, bw, bh = band_xywh
+    ax.add_patch(Rectangle((x - 0.5, y - 0.5), bw, bh, fill=False, ec=ACCENT, lw=1.4))
+    ax.set_title(caption, fontsize=9)
+    ax.set_xlabel("camera x (px, in the saved crop)")
+    ax.set_ylabel("camera y (px)")
+    fig.tight_layout()
+    return _png(fig)
+
+
+def drift_figure(t_s, phase_rad, model_t_s=None, model_rad=None) -> bytes:
+    """Phase of the reference gray at each visit (mrad, relative to the first) and the fitted drift."""
+    fig, (ax,) = _axes(7.0, 3.2)
+    ax.plot(t_s, 1e3 * np.asarray(phase_rad), "o", ms=3, color=INK, label="reference visits")
+    if model_t_s is not None:
+        ax.plot(model_t_s, 1e3 * np.asarray(model_rad), "-", lw=1.0, color=ACCENT, label="drift model")
+    ax.set_xlabel("time (s)")
+    ax.set_ylabel("reference phase (mrad)")
+    ax.legend(fontsize=8)
+    fig.tight_layout()
+    return _png(fig)
+
+
+def logged_figure(series: list[tuple[str, np.ndarray, np.ndarray]]) -> bytes:
+    """Logged quantities against time, one panel each: (label with unit, t_s, value)."""
+    fig, axes = plt.subplots(len(series), 1, figsize=(7.0, 2.4 * len(series)), dpi=DPI, sharex=True, squeeze=False)
+    for ax, (label, t, v) in zip(axes[:, 0], series):
+        ax.plot(t, v, "-", lw=0.9, color=INK)
+        ax.set_ylabel(label)
+        ax.grid(alpha=0.25, lw=0.6)
+    axes[-1, 0].set_xlabel("time (s)")
+    fig.tight_layout()
+    return _png(fig)
