@@ -54,3 +54,26 @@ class Clock(Protocol):
 
     def sleep(self, seconds: float) -> None:
         """Wait ``seconds``."""
+
+
+@runtime_checkable
+class Transport(Protocol):
+    """A byte link to a serial instrument: ``serial.Serial`` satisfies it, and so do the tests' scripted fakes.
+
+    ``read_until`` returns what arrived before ``expected`` or before ``timeout`` seconds passed (then without the
+    terminator); a link that is gone raises ``serial.SerialException`` or ``OSError``.
+    """
+
+    timeout: float | None
+
+    def write(self, data: bytes) -> int | None:
+        """Send ``data``."""
+
+    def read_until(self, expected: bytes = b"\n", size: int | None = None) -> bytes:
+        """Bytes up to and including ``expected``, or what came before the timeout."""
+
+    def reset_input_buffer(self) -> None:
+        """Drop bytes received and not read (a late reply to an earlier query)."""
+
+    def close(self) -> None:
+        """Release the port."""
