@@ -93,6 +93,8 @@ class Sweep:
     reference_gray: int = spec(0, lo=0, hi=4095, doc="gray re-measured for drift correction")
     reference_every: int = spec(16, lo=0, hi=100000, doc="levels between drift references (0: none)")
     order: str = spec("ascending", choices=("ascending", "shuffled", "up-down"), doc="order of the levels")
+    warmup_slope_rad_per_min: float = spec(0.01, lo=1e-6, hi=10.0, lo_open=False,
+                                           doc="warm-up is over when the fringe phase moves less than this a minute")
 
 
 @dataclass(frozen=True)
@@ -146,6 +148,8 @@ class Timing:
     drift_urad_per_s: float = spec(0.0, lo=-1000.0, hi=1000.0, doc="slow panel tilt drift")
     flicker_rad: float = spec(0.0, lo=0.0, hi=3.0, doc="peak phase ripple at the steepest gray")
     flicker_hz: float = spec(120.0, lo=0.0, hi=100000.0, doc="ripple frequency")
+    warmup_k: float = spec(0.0, lo=0.0, hi=30.0, doc="panel temperature rise still to come when the bench starts")
+    warmup_tau_s: float = spec(600.0, lo=1.0, hi=36000.0, doc="time constant of the panel's warm-up")
 
 
 @dataclass(frozen=True)

@@ -21,7 +21,7 @@ import numpy as np
 
 from analysis.patterns import layout_of, split_screen
 from rig.errors import FringecalError
-from rig.plans import Checkpoint, Grab, Measurement, SetExposure, Settle, ShowSplit, Stage
+from rig.plans import Checkpoint, Grab, Measurement, SetExposure, Settle, ShowSplit, Stage, Wait
 
 MAX_RETRIES = 8
 BACKOFF_S = (0.02, 0.05, 0.1, 0.2, 0.5, 1.0)
@@ -107,6 +107,9 @@ class Engine:
             return None
         if isinstance(step, Grab):
             return self._grab(step)
+        if isinstance(step, Wait):
+            self.clock.sleep(step.seconds)
+            return None
         if isinstance(step, SetExposure):
             self.camera.exposure_s = step.exposure_s
             return None

@@ -34,6 +34,13 @@ class Settle:
 
 
 @dataclass(frozen=True)
+class Wait:
+    """Let ``seconds`` pass with the pattern held."""
+
+    seconds: float
+
+
+@dataclass(frozen=True)
 class SetExposure:
     """Set the camera exposure (s)."""
 
@@ -273,6 +280,41 @@ def sweep_plan(cfg, low: int, high: int, done: frozenset[str] = frozenset(), see
         yield Settle(cfg.sweep.settle_s)
         yield Grab(cfg.sweep.frames_per_level, purpose, gray, keep=True, unit=key)
         yield Checkpoint(key)
+
+
+@dataclass(frozen=True)
+class WarmupResult:
+    """How the warm-up ended: stable or not, after how long, the last slope, and the phase series followed."""
+
+    stable: bool
+    minutes: float
+    slope_rad_per_min: float
+    series: tuple[tuple[float, float], ...]  # (time s, unwrapped fringe phase rad)
+
+
+def warmup_plan(cfg, low: int, high: int, max_minutes: float, interval_s: float = 10.0, window_s: float = 120.0):
+    """Hold the reference pattern and follow its fringe phase until, over the last ``window_s``, it moves less than
+    ``sweep.warmup_slope_rad_per_min``; give up (stable=False) after ``max_minutes``."""
+    gray = cfg.sweep.reference_gray
+    yield Stage("warm-up", int(max_minutes * 60 / interval_s) + 1)
+    yield ShowSplit(gray, low, high)
+    yield Settle(cfg.sweep.settle_s)
+    times, phases = [], []
+    slope = float("nan")
+    while True:
+        m = yield Grab(2, "warmup", gray, wait=True)
+        times.append(float(np.mean([r.t_s for r in m.results])))
+        phases.append(float(np.angle(np.mean(np.exp(1j * np.array([r.phase_rad for r in m.results]))))))
+        t, phi = np.array(times), np.unwrap(phases)
+        elapsed = t[-1] - t[0]
+        if elapsed >= window_s:
+            recent = t >= t[-1] - window_s
+            slope = float(np.polyfit(t[recent], phi[recent], 1)[0] * 60)
+            if abs(slope) < cfg.sweep.warmup_slope_rad_per_min:
+                return WarmupResult(True, elapsed / 60, slope, tuple(zip(t, phi)))
+        if elapsed >= max_minutes * 60:
+            return WarmupResult(False, elapsed / 60, slope, tuple(zip(t, phi)))
+        yield Wait(interval_s)
 
 
 def hold_plan(cfg, gray: int, low: int, high: int, frames: int):

@@ -22,7 +22,7 @@ from rig.errors import UsageError
 from rig.journal import Journal, read_journal
 from rig.lut_files import metadata, write_lut_folder
 from rig.measure import FrameAnalyzer
-from rig.plans import PlanError, exposure_plan, locate_plan, opposite_gray, sweep_plan, tune_plan
+from rig.plans import PlanError, exposure_plan, locate_plan, opposite_gray, sweep_plan, tune_plan, warmup_plan
 from rig.results import curve_summary, plot_curve, plot_tuning, write_json, write_phase_csv
 from rig.runfolder import RunFolder, command_line, default_run_dir, now_iso
 from rig.safety import add_acknowledgement_flag, ensure_laser_safety
@@ -47,6 +47,9 @@ def register(command) -> None:
         p.add_argument("--events", metavar="FILE", help="also write progress events as JSON lines to FILE")
         p.add_argument("--no-frames", action="store_true", help="do not save the fringe-band crops of each frame")
         add_acknowledgement_flag(p)
+        if name in ("sweep", "run"):
+            p.add_argument("--warmup-minutes", type=float, default=0.0, metavar="M",
+                           help="before measuring, hold a pattern until the fringe phase is stable, at most M minutes")
         if name == "sweep":
             p.add_argument("--resume", metavar="RUN_DIR", help="continue an interrupted sweep in RUN_DIR")
             p.add_argument("--pair", metavar="LOW:HIGH", help="grating gray pair (default: the config's)")
@@ -205,6 +208,22 @@ def tune(s: Session, opposite: int):
     return result
 
 
+def warm_up(s: Session, low: int, high: int, minutes: float) -> None:
+    """Hold the reference pattern until its fringe phase is stable (or ``minutes`` pass); record how it went."""
+    if minutes <= 0:
+        return
+    result = s.engine.run(warmup_plan(s.cfg, low, high, minutes))
+    s.folder.update(warmup={"stable": result.stable, "minutes": result.minutes,
+                            "slope_rad_per_min": result.slope_rad_per_min})
+    if result.stable:
+        s.log(f"warm-up: stable after {result.minutes:.1f} min ({result.slope_rad_per_min:+.4f} rad/min)")
+    else:
+        message = (f"warm-up: not stable after {result.minutes:.1f} min (last slope {result.slope_rad_per_min:+.4f}"
+                   f" rad/min, limit {s.cfg.sweep.warmup_slope_rad_per_min}); measuring anyway")
+        s.folder.warn(message)
+        s.log(message)
+
+
 def sweep(s: Session, low: int, high: int, done=frozenset()) -> None:
     s.folder.update(pair={**s.folder.info.get("pair", {}), "low": low, "high": high})
     s.engine.run(sweep_plan(s.cfg, low, high, done))
@@ -344,6 +363,7 @@ def cmd_sweep(args) -> int:
             estimate_dark(s)
             auto_exposure(s, low, high)
             locate(s, low, high)
+            warm_up(s, low, high, args.warmup_minutes)
             sweep(s, low, high)
             bench = s.devices.bench
         return _finish(folder, cfg, args.method, bench)
@@ -352,8 +372,9 @@ def cmd_sweep(args) -> int:
 
 
 def _resume(args) -> int:
-    if args.config or args.out or args.pair:
-        raise UsageError("--resume: the run's own config, folder and pair are used; drop --config, --out and --pair")
+    if args.config or args.out or args.pair or args.warmup_minutes:
+        raise UsageError("--resume: the run's own config, folder and pair are used; drop --config, --out, --pair and "
+                         "--warmup-minutes")
     folder = RunFolder.open(args.resume)
     cfg = config_from_dict(folder.info["config"], source=folder.info["config_source"])
     if "band" not in folder.info or "pair" not in folder.info or "exposure_s" not in folder.info:
@@ -399,6 +420,7 @@ def cmd_run(args) -> int:
             estimate_dark(s)
             auto_exposure(s, cfg.pattern.grating_low, cfg.pattern.grating_high)
             opposite = locate(s, cfg.pattern.grating_low, cfg.pattern.grating_high)
+            warm_up(s, cfg.pattern.grating_low, cfg.pattern.grating_high, args.warmup_minutes)
             result = tune(s, opposite)
             auto_exposure(s, result.low, result.high)  # the tuned first order is brighter than the starting pair's
             sweep(s, result.low, result.high)

@@ -31,7 +31,7 @@ from scipy import ndimage
 from analysis.config import Config
 from simulators.optics import (CameraSampler, Propagator, beam_field, camera_points_um, centred_coords_um,
                                photons_per_joule)
-from simulators.response import PanelResponse
+from simulators.response import PanelResponse, order_factor
 from simulators.sensor import Sensor
 
 SETTLED_TAU = 14.0  # after 14 time constants a transient is below 1e-6 of its step: treat it as settled
@@ -261,6 +261,16 @@ class Bench:
             self._stack_cache = (keys, np.concatenate([self._basis[k].fields for k in keys], axis=1))
         return self._stack_cache[1]
 
+    def thermal_factor(self, t: float) -> float:
+        """Retardance at time ``t`` relative to the warm panel's: the birefringence of a panel still warming up is
+        larger (order-parameter law), its temperature approaching the configured one exponentially."""
+        timing, resp = self.cfg.simulator.timing, self.cfg.simulator.response
+        if not timing.warmup_k or not math.isfinite(t):
+            return 1.0
+        now_c = resp.temperature_c - timing.warmup_k * math.exp(-max(t, 0.0) / timing.warmup_tau_s)
+        return (order_factor(now_c, resp.clearing_c, resp.order_exponent)
+                / order_factor(resp.temperature_c, resp.clearing_c, resp.order_exponent))
+
     def region_phases(self, state: PanelState, t: float, exposure_s: float, tilt_urad=(0.0, 0.0)) -> list[float]:
         """Phase (rad) of each region's aligned field at time ``t``: transient, flicker and panel-tilt piston."""
         timing = self.cfg.simulator.timing
@@ -271,7 +281,7 @@ class Bench:
                       * math.sin(2 * math.pi * timing.flicker_hz * t + self.flicker_offset))
         phases = []
         for r in state.regions:
-            rho = r.retardance(t, timing.lc_tau_s)
+            rho = r.retardance(t, timing.lc_tau_s) * self.thermal_factor(t)
             if ripple:
                 rho += ripple * float(self.response.slope_weight(r.gray))
             cx, cy = self._basis[r.key].centroid_um
@@ -288,7 +298,7 @@ class Bench:
             if self.thickness is None:
                 coeffs.append(c)
             else:
-                rho = r.retardance(t, self.cfg.simulator.timing.lc_tau_s)
+                rho = r.retardance(t, self.cfg.simulator.timing.lc_tau_s) * self.thermal_factor(t)
                 coeffs.extend(c * rho**n for n in range(TAYLOR_TERMS))
         return np.asarray(coeffs, np.complex64)
 
@@ -310,7 +320,7 @@ class Bench:
         thick = 1.0 if self.thickness is None else self.thickness
         tau = self.cfg.simulator.timing.lc_tau_s
         for index, (r, phase) in enumerate(zip(state.regions, self.region_phases(state, t, exposure_s))):
-            rho = r.retardance(t, tau)
+            rho = r.retardance(t, tau) * self.thermal_factor(t)
             amp = self.aligned_amp * math.sqrt(1.0 - droop * r.gray / self.response.gray_max)
             out += (self.beam * self._weight(state.labels == index)
                     * (amp * np.exp(1j * (phase - rho + rho * thick))).astype(np.complex64))
