@@ -27,6 +27,15 @@ class ShowSplit:
 
 
 @dataclass(frozen=True)
+class UseRegion:
+    """Draw later split patterns inside ``rect`` (x0, x1, y0, y1 panel px) with ``background_gray`` elsewhere;
+    ``rect=None`` goes back to the whole panel."""
+
+    rect: tuple[int, int, int, int] | None
+    background_gray: int = 0
+
+
+@dataclass(frozen=True)
 class Settle:
     """Wait until ``seconds`` after the last pattern change; frames exposed before then are discarded."""
 
@@ -249,30 +258,34 @@ def sweep_order(levels, order: str, seed: int = 0) -> list[int]:
     return levels
 
 
-def sweep_units(cfg, seed: int = 0) -> list[tuple[str, str, int]]:
-    """The sweep as units (checkpoint key, purpose, gray): references first, every K levels, and last."""
+def sweep_units(cfg, seed: int = 0, prefix: str = "") -> list[tuple[str, str, int]]:
+    """The sweep as units (checkpoint key, purpose, gray): references first, every K levels, and last.
+
+    ``prefix`` keeps the keys of several sweeps in one journal apart (one sweep per tile of a map).
+    """
     order = sweep_order(cfg.sweep_levels(), cfg.sweep.order, seed)
     every, ref = cfg.sweep.reference_every, cfg.sweep.reference_gray
     units, refs = [], 0
 
     def reference():
         nonlocal refs
-        units.append((f"reference:{refs}", "reference", ref))
+        units.append((f"{prefix}reference:{refs}", "reference", ref))
         refs += 1
 
     if every:
         reference()
     for i, gray in enumerate(order):
-        units.append((f"level:{i}", "level", gray))
+        units.append((f"{prefix}level:{i}", "level", gray))
         if every and ((i + 1) % every == 0 or i + 1 == len(order)):
             reference()
     return units
 
 
-def sweep_plan(cfg, low: int, high: int, done: frozenset[str] = frozenset(), seed: int = 0):
+def sweep_plan(cfg, low: int, high: int, done: frozenset[str] = frozenset(), seed: int = 0, prefix: str = "",
+               stage: str = "sweep"):
     """Measure every unit of the sweep not in ``done``; frames are analysed and journaled as they come."""
-    units = sweep_units(cfg, seed)
-    yield Stage("sweep", len(units), sum(key in done for key, _, _ in units))
+    units = sweep_units(cfg, seed, prefix)
+    yield Stage(stage, len(units), sum(key in done for key, _, _ in units))
     for key, purpose, gray in units:
         if key in done:
             continue

@@ -357,6 +357,15 @@ class Bench:
         return float(timing.flicker_rad * abs(np.sinc(timing.flicker_hz * exposure_s))
                      * abs(w(mirror_gray) - 0.5 * (w(low) + w(high))))
 
+    def true_curve_in(self, x0: int, x1: int, y0: int, y1: int) -> tuple[np.ndarray, np.ndarray]:
+        """The true curve (rad) of the panel pixels in columns x0..x1-1, rows y0..y1-1: the retardance scales with
+        the cell gap, so it is the panel's curve times the region's illumination-weighted mean relative gap."""
+        grays, phase = self.response.curve()
+        if self.thickness is None:
+            return grays, phase
+        w = np.abs(self.beam[y0:y1, x0:x1]) ** 2
+        return grays, phase * float((self.thickness[y0:y1, x0:x1] * w).sum() / w.sum())
+
     def true_curve(self) -> tuple[np.ndarray, np.ndarray]:
         """Gray levels and the panel's true phase (rad, relative to gray 0) over the illuminated panel."""
         grays, phase = self.response.curve()
