@@ -205,7 +205,7 @@ class Bench:
         for index in order:
             gray, start = starts[index]
             regions.append(Region(gray, start, float(self.response.retardance_rad(gray)), t_c, keys[index]))
-            self._ensure_basis(keys[index], masks[index])
+            self._ensure_basis(keys[index], masks[index], keep=keys)
         return PanelState(t_c, relabel[labels], tuple(regions), pattern.copy())
 
     def state_at(self, t: float) -> PanelState:
@@ -234,7 +234,7 @@ class Bench:
             return mask.astype(np.float32)
         return ndimage.gaussian_filter(mask.astype(np.float32), sigma, mode="nearest")
 
-    def _ensure_basis(self, key: bytes, mask: np.ndarray) -> None:
+    def _ensure_basis(self, key: bytes, mask: np.ndarray, keep=()) -> None:
         if key in self._basis:
             self._basis.move_to_end(key)
             return
@@ -251,7 +251,8 @@ class Bench:
         cx = float((power.sum(axis=0) * centred_coords_um(m.width_px, m.pitch_um)).sum() / total)
         cy = float((power.sum(axis=1) * centred_coords_um(m.height_px, m.pitch_um)).sum() / total)
         self._basis[key] = RegionBasis(np.ascontiguousarray(fields), (cx, cy))
-        in_use = {r.key for state in self._states for r in state.regions} | {key, self._whole_key}
+        # never evict fields still in use: by the states kept, by the state being built (keep), the whole panel
+        in_use = {r.key for state in self._states for r in state.regions} | {key, self._whole_key, *keep}
         for old in [k for k in self._basis if k not in in_use][: max(len(self._basis) - self._basis_limit, 0)]:
             del self._basis[old]
 

@@ -257,3 +257,14 @@ def test_a_bench_started_later_on_the_time_line_reproduces_the_frames(small_cfg)
     resumed.clock.sleep(0.1)
     got = SimCamera(resumed).grab()
     assert got.sequence == wanted.sequence and np.array_equal(got.image, wanted.image)
+
+
+def test_patterns_with_more_regions_than_the_cache_still_render(small_cfg):
+    """A staircase of 30 grays makes 30 regions, more than the field cache keeps: none of them may be evicted."""
+    bench = Bench(small_cfg)
+    stairs = (np.arange(small_cfg.modulator.width_px) * 30 // small_cfg.modulator.width_px).astype(np.uint8) * 8
+    for offset in (0, 1):
+        bench.show(np.broadcast_to(stairs + offset, (small_cfg.modulator.height_px, stairs.size)).copy())
+        bench.clock.sleep(0.2)
+        image = bench.irradiance(bench.clock.now(), 0.0)
+        assert np.all(np.isfinite(image)) and image.max() > 0
