@@ -79,12 +79,13 @@ def prediction_figure(sources: list[tuple[float, np.ndarray, np.ndarray]], wavel
     return _png(fig)
 
 
-def curve_figure(gray, phase, std, smooth, truth=None) -> bytes:
-    """The calibration curve with 2-sigma error bars, its smooth monotone fit and (simulator) the true curve."""
+def curve_figure(gray, phase, std, smooth=None, truth=None, label: str = "measured") -> bytes:
+    """The calibration curve with 2-sigma error bars, its smooth monotone fit (if any) and (simulator) the truth."""
     fig, (ax,) = _axes()
     ax.errorbar(gray, phase / np.pi, yerr=2 * std / np.pi, fmt="o", ms=2.2, lw=0.7, capsize=0, color=INK,
-                label="measured (±2σ)")
-    ax.plot(gray, smooth / np.pi, "-", lw=1.1, color=ACCENT, label="smooth monotone fit")
+                label=f"{label} (±2σ)")
+    if smooth is not None:
+        ax.plot(gray, smooth / np.pi, "-", lw=1.1, color=ACCENT, label="smooth monotone fit")
     if truth is not None:
         ax.plot(truth[0], truth[1] / np.pi, "--", lw=0.9, color=MUTED, label="simulator truth")
     ax.axhline(2, color=MUTED, lw=0.6, ls=":")

@@ -11,9 +11,9 @@ import io
 import json
 from pathlib import Path
 
-import numpy as np
 
 from rig.atomic import write_atomic
+from rig.figures import curve_figure, tuning_figure
 
 PHASE_HEADER = ["gray", "phase_rad", "phase_std_rad", "contrast", "n_frames"]
 
@@ -60,44 +60,10 @@ def write_json(path: Path, data: dict) -> Path:
 
 def plot_curve(path: Path, curve, method: str, truth=None) -> Path:
     """phase.png: the measured curve with error bars (and the simulator's truth when given as (gray, phase))."""
-    import matplotlib
-    matplotlib.use("Agg")
-    import matplotlib.pyplot as plt
-
-    fig, ax = plt.subplots(figsize=(7, 4.5), dpi=110)
-    ax.errorbar(curve.gray, curve.phase_rad / np.pi, yerr=curve.std_rad / np.pi, fmt=".", ms=3, capsize=1.5,
-                label=f"measured ({method})")
-    if curve.smooth_rad is not None:
-        ax.plot(curve.gray, curve.smooth_rad / np.pi, "-", lw=1, label="monotone fit")
-    if truth is not None:
-        ax.plot(truth[0], truth[1] / np.pi, "-", lw=0.8, color="0.4", label="simulator truth")
-    ax.set_xlabel("gray level")
-    ax.set_ylabel(f"phase relative to gray {curve.reference_gray} (π rad)")
-    ax.grid(alpha=0.3)
-    ax.legend(loc="upper left")
-    fig.tight_layout()
-    buf = io.BytesIO()
-    fig.savefig(buf, format="png")
-    plt.close(fig)
-    return write_atomic(path, buf.getvalue())
+    return write_atomic(path, curve_figure(curve.gray, curve.phase_rad, curve.std_rad, curve.smooth_rad, truth,
+                                           label=f"measured, {method}"))
 
 
 def plot_tuning(path: Path, curve: list[tuple[int, float]], low: int, best: int) -> Path:
     """tune.png: fringe contrast against the grating's high gray, with the chosen pair marked."""
-    import matplotlib
-    matplotlib.use("Agg")
-    import matplotlib.pyplot as plt
-
-    pts = sorted(curve)
-    fig, ax = plt.subplots(figsize=(6, 3.8), dpi=110)
-    ax.plot([g for g, _ in pts], [c for _, c in pts], "o-", ms=3, lw=0.8)
-    ax.axvline(best, color="C3", lw=0.8, label=f"chosen pair {low}/{best}")
-    ax.set_xlabel(f"grating high gray (low gray {low})")
-    ax.set_ylabel("fringe contrast")
-    ax.grid(alpha=0.3)
-    ax.legend()
-    fig.tight_layout()
-    buf = io.BytesIO()
-    fig.savefig(buf, format="png")
-    plt.close(fig)
-    return write_atomic(path, buf.getvalue())
+    return write_atomic(path, tuning_figure([g for g, _ in curve], [c for _, c in curve], low, best))
