@@ -44,7 +44,8 @@ class Engine:
     """
 
     def __init__(self, cfg, screen, camera, clock, analyzer, journal=None, publish: Callable[[dict], None] = None,
-                 on_frame: Callable | None = None, timeout_s: float = 2.0, frames_before: int = 0, session: int = 1):
+                 on_frame: Callable | None = None, timeout_s: float = 2.0, frames_before: int = 0, session: int = 1,
+                 discard_frames: int = 0, readings: Callable[[], dict] | None = None):
         self.cfg = cfg
         self.screen, self.camera, self.clock = screen, camera, clock
         self.analyzer = analyzer
@@ -55,6 +56,11 @@ class Engine:
         self.faults: collections.Counter[str] = collections.Counter()
         self.frames_grabbed = frames_before  # frames journaled by earlier sessions of a resumed run
         self.session = session  # which session of the run (1, then one more per resume) wrote a journal line
+        # accessories: frames dropped after each pattern change where camera timestamps cannot be trusted, and the
+        # readings (power, temperature) taken during each settle and merged into the journal lines after it
+        self.discard_frames, self.readings = discard_frames, readings
+        self._to_discard = 0
+        self._readings: dict = {}
         self._stop = False
         self._worker = ThreadPoolExecutor(max_workers=1, thread_name_prefix="analysis")
         self._pending: collections.deque[Future] = collections.deque()
@@ -103,6 +109,8 @@ class Engine:
             return self._show(step)
         if isinstance(step, Settle):
             self._deadline = self._changed_at + step.seconds
+            if self.readings is not None:
+                self._readings = self.readings()  # the serial round trips use time spent waiting anyway
             self.clock.sleep(self._deadline - self.clock.now())
             return None
         if isinstance(step, Grab):
@@ -132,6 +140,7 @@ class Engine:
         self.screen.show(self._patterns[key])
         self._changed_at = self.clock.now()
         self._deadline = self._changed_at
+        self._to_discard = self.discard_frames
         self.publish({"event": "pattern", "mirror_gray": step.mirror_gray, "low": step.low, "high": step.high})
 
     def _grab(self, step: Grab):
@@ -157,9 +166,13 @@ class Engine:
                     raise DeviceFault(f"camera: {stale} frames in a row predate the settle deadline; "
                                       "are camera timestamps on the bench clock?")
                 continue
+            if self._to_discard:
+                self._to_discard -= 1
+                self.faults["discarded"] += 1
+                continue
             failures = 0
             self.frames_grabbed += 1
-            futures.append(self._submit(self._analyse, frame, step, self.frames_grabbed))
+            futures.append(self._submit(self._analyse, frame, step, self.frames_grabbed, dict(self._readings)))
             if step.wait and step.purpose == "locate":
                 images.append(frame.image)
         if not step.wait:
@@ -186,13 +199,13 @@ class Engine:
         self._pending.append(future)
         return future
 
-    def _analyse(self, frame, step: Grab, number: int):
+    def _analyse(self, frame, step: Grab, number: int, readings: dict):
         result = self.analyzer(frame.image, step.gray, step.purpose, frame.timestamp_s, frame.sequence)
         record = {"frame": number, "session": self.session, "unit": step.unit, "purpose": step.purpose,
                   "gray": step.gray, "t_s": round(frame.timestamp_s, 9), "sequence": frame.sequence,
                   "exposure_s": frame.exposure_s, "phase_rad": result.phase_rad, "phase_std_rad": result.phase_std_rad,
                   "contrast": result.contrast, "peak_fraction": round(result.peak_fraction, 5),
-                  "saturated_px": result.saturated_px}
+                  "saturated_px": result.saturated_px, **readings}
         if self.on_frame is not None:
             record = self.on_frame(record, frame, step)
         if self.journal is not None:

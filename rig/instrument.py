@@ -28,6 +28,7 @@ class LineInstrument:
         self._write_end = link.write_terminator.encode()
         self._read_end = link.read_terminator.encode()
         self.where = f"{part} on {link.port or 'a test link'}"
+        self.identity = ""  # the identify reply, once asked
 
     def write(self, command: str) -> None:
         """Send ``command`` (no reply expected)."""
@@ -52,8 +53,9 @@ class LineInstrument:
         return self._ask(command, parse, f"a number in {unit}")
 
     def identify(self) -> str:
-        """The instrument's identity reply ('' when no identify command is configured)."""
-        return self.query(self.link.identify_command) if self.link.identify_command else ""
+        """Ask the instrument who it is and keep the reply in ``identity`` ('' without an identify command)."""
+        self.identity = self.query(self.link.identify_command) if self.link.identify_command else ""
+        return self.identity
 
     def _check(self, command: str) -> None:
         if not command or not command.isascii() or any(c in command for c in "\r\n"):

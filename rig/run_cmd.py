@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import signal
 import sys
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from pathlib import Path
 
 import numpy as np
@@ -26,6 +26,10 @@ from rig.plans import PlanError, exposure_plan, locate_plan, opposite_gray, swee
 from rig.results import curve_summary, plot_curve, plot_tuning, write_json, write_phase_csv
 from rig.runfolder import RunFolder, command_line, default_run_dir, now_iso
 from rig.safety import add_acknowledgement_flag, ensure_laser_safety
+from rig.accessories import Accessories, DriftWatch, open_accessories
+from rig.cameras import open_camera
+from rig.clock import MonotonicClock
+from rig.screen import Tee, open_screen
 
 MIN_TUNED_CONTRAST = 0.10
 EXIT_FAULT, EXIT_INTERRUPTED = 3, 130
@@ -58,22 +62,34 @@ def register(command) -> None:
 # --- devices -------------------------------------------------------------------------------------------------
 @dataclass
 class Devices:
-    """The screen, camera and clock of one session, and the simulated bench behind them (None on hardware)."""
+    """The screen, camera, clock and serial accessories of one session, and the simulated bench behind the
+    simulated parts (None when nothing is simulated). ``close`` releases every one of them, whatever fails."""
 
     screen: object
     camera: object
     clock: object
     bench: object | None
     identity: dict
+    accessories: Accessories = field(default_factory=Accessories)
 
     def close(self) -> None:
-        for device in (self.screen, self.camera):
-            device.close()
+        try:
+            self.accessories.close()
+        finally:
+            try:
+                self.screen.close()
+            finally:
+                self.camera.close()
 
 
 def open_devices(cfg, sim: bool, start_s: float = 0.0) -> Devices:
-    """Open the bench the config describes; ``start_s`` continues a simulated run's time line."""
-    if sim or cfg.camera.backend == "sim":
+    """Open the bench the config describes; ``start_s`` continues a simulated run's time line.
+
+    ``sim`` (--sim): the whole bench is simulated. Otherwise the panel is a window on ``modulator.display`` and the
+    camera comes from ``camera.backend``; a 'sim' camera watches the simulated bench, which is shown each pattern
+    the window shows. Serial accessories with a port configured are opened and checked.
+    """
+    if sim:
         from simulators.bench import Bench
         from simulators.devices import SimCamera, SimScreen
         bench = Bench(cfg, start_s=start_s)
@@ -81,8 +97,55 @@ def open_devices(cfg, sim: bool, start_s: float = 0.0) -> Devices:
                     "camera": f"simulated camera {cfg.camera.width_px}x{cfg.camera.height_px}",
                     "simulator_seed": cfg.simulator.seed}
         return Devices(SimScreen(bench), SimCamera(bench), bench.clock, bench, identity)
-    raise UsageError(f"camera.backend: '{cfg.camera.backend}' hardware is not available in this version of "
-                     "fringecal yet; use --sim for the simulated bench")
+    opened = []
+    try:
+        window = open_screen(cfg.modulator)
+        opened.append(window)
+        identity = {"screen": window.display.describe()}
+        if cfg.camera.backend == "sim":
+            from simulators.bench import Bench
+            from simulators.devices import SimCamera, SimScreen
+            bench = Bench(cfg, start_s=start_s)
+            screen, camera, clock = Tee(window, SimScreen(bench)), SimCamera(bench), bench.clock
+            identity.update(camera=f"simulated camera {cfg.camera.width_px}x{cfg.camera.height_px}",
+                            simulator_seed=cfg.simulator.seed)
+        else:
+            bench, screen, clock = None, window, MonotonicClock()
+            camera = open_camera(cfg.camera, clock)
+            identity["camera"] = getattr(camera, "name", cfg.camera.backend)
+        opened.append(camera)
+        if not getattr(camera, "exposure_timestamps", True) and cfg.camera.discard_frames == 0:
+            print(f"warning: {identity['camera']} gives no exposure timestamps; set camera.discard_frames "
+                  "(fringecal timing measures how many)", file=sys.stderr)
+        accessories = open_accessories(cfg.accessories)
+        opened.append(accessories)
+        identity.update({role: part.link.identity or part.link.where for role, part in accessories.fitted().items()})
+        if accessories.rotator is not None:
+            identity["rotator_angle_deg"] = accessories.rotator.move_to(cfg.accessories.rotator.angle_deg)
+    except BaseException:
+        for device in reversed(opened):
+            device.close()
+        raise
+    return Devices(screen, camera, clock, bench, identity, accessories)
+
+
+def take_dark(s: "Session") -> float:
+    """Black level (ADU): the mean of frames with the shutter closed when one is fitted, else estimate_dark."""
+    shutter = s.devices.accessories.shutter
+    if shutter is None:
+        return estimate_dark(s)
+    settings = s.cfg.accessories.shutter
+    shutter.close()
+    try:
+        frames = [s.devices.camera.grab(timeout_s=s.engine.timeout_s).image for _ in range(settings.dark_frames)]
+    finally:
+        shutter.open()
+    dark_image = np.mean(frames, axis=0)
+    dark = float(dark_image.mean())
+    s.analyzer.dark_adu = dark
+    s.folder.update(dark_adu=dark, dark_source=f"mean of {settings.dark_frames} frames with the shutter closed")
+    s.log(f"dark level {dark:.1f} ADU with the shutter closed")
+    return dark
 
 
 class Session:
@@ -105,8 +168,21 @@ class Session:
         self.engine = Engine(cfg, self.devices.screen, cam, self.devices.clock, self.analyzer, self.journal,
                              publish=lambda event: [listener(event) for listener in listeners],
                              on_frame=folder.on_frame, frames_before=frames_before,
-                             session=folder.info.get("sessions", 1))
+                             session=folder.info.get("sessions", 1), **self._accessory_options(cfg, folder))
         self._previous_handler = None
+
+    def _accessory_options(self, cfg, folder: RunFolder) -> dict:
+        """Engine options for the accessories: frames to discard, and logged readings with drift warnings."""
+        options = {"discard_frames": cfg.camera.discard_frames, "timeout_s": cfg.camera.grab_timeout_s}
+        parts = self.devices.accessories
+        if parts.power_meter is not None or parts.thermometer is not None:
+            def warn(message: str) -> None:
+                folder.warn(message)
+                self.log(f"warning: {message}")
+
+            watch = DriftWatch(cfg.accessories, warn)
+            options["readings"] = lambda: watch(parts.readings())
+        return options
 
     def log(self, message: str) -> None:
         self.engine.publish({"event": "log", "message": message})
@@ -328,7 +404,7 @@ def cmd_tune(args) -> int:
 
     def body():
         with Session(args, cfg, folder, "fringecal tune") as s:
-            estimate_dark(s)
+            take_dark(s)
             auto_exposure(s, cfg.pattern.grating_low, cfg.pattern.grating_high)
             opposite = locate(s, cfg.pattern.grating_low, cfg.pattern.grating_high)
             result = tune(s, opposite)
@@ -360,7 +436,7 @@ def cmd_sweep(args) -> int:
 
     def body():
         with Session(args, cfg, folder, "fringecal sweep") as s:
-            estimate_dark(s)
+            take_dark(s)
             auto_exposure(s, low, high)
             locate(s, low, high)
             warm_up(s, low, high, args.warmup_minutes)
@@ -417,7 +493,7 @@ def cmd_run(args) -> int:
 
     def body():
         with Session(args, cfg, folder, "fringecal run") as s:
-            estimate_dark(s)
+            take_dark(s)
             auto_exposure(s, cfg.pattern.grating_low, cfg.pattern.grating_high)
             opposite = locate(s, cfg.pattern.grating_low, cfg.pattern.grating_high)
             warm_up(s, cfg.pattern.grating_low, cfg.pattern.grating_high, args.warmup_minutes)

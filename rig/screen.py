@@ -234,3 +234,25 @@ def open_screen(mod, allow_primary: bool = False) -> PygletScreen:
     display = choose_display(list_displays(), mod.display, mod.width_px, mod.height_px,
                              allow_primary or mod.allow_primary)
     return PygletScreen(display, mod.bit_depth, mod.rgb_shift_bits)
+
+
+class Tee:
+    """Shows every pattern on the window and on a second screen (the simulated panel a simulated camera watches),
+    so a run can drive the real window while the simulator supplies the frames."""
+
+    def __init__(self, window: PygletScreen, twin):
+        self.window, self.twin = window, twin
+        self.width_px, self.height_px, self.bit_depth = window.width_px, window.height_px, window.bit_depth
+        self.display = window.display
+
+    def show(self, pattern: np.ndarray) -> None:
+        """Show ``pattern`` on the window, then hand it to the twin."""
+        self.window.show(pattern)
+        self.twin.show(pattern)
+
+    def close(self) -> None:
+        """Close the window and blank the twin."""
+        try:
+            self.window.close()
+        finally:
+            self.twin.close()
