@@ -154,3 +154,15 @@ def test_engine_discards_the_configured_frames_after_each_pattern_change(small_c
     finally:
         engine.close()
     assert engine.faults["discarded"] == 6 and camera.delivered == 10 and engine.frames_grabbed == 4
+
+
+def test_hardware_template_loads_and_marks_what_to_change():
+    from configs import HERE
+    path = HERE / "bench-hardware.toml"
+    cfg = load_config(path)
+    assert cfg.camera.backend == "opencv" and cfg.accessories.shutter.port == "/dev/ttyUSB0"
+    text = path.read_text()
+    for section in ("[modulator]", "[laser]", "[camera]", "[geometry]", "[accessories.shutter]",
+                    "[accessories.power_meter]", "[accessories.rotator]", "[accessories.thermometer]"):
+        assert section in text
+    assert text.count("# CHANGE") >= 15
