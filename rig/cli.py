@@ -37,8 +37,9 @@ a typical session:
 
 
 COMMAND_MODULES: tuple[str, ...] = (
-    "rig.run_cmd", "rig.align_cmd", "rig.flicker_cmd", "rig.analyze_cmd", "rig.lut_cmd", "rig.pattern_cmd",
-    "rig.plan_cmd", "rig.compare_cmd", "rig.screens_cmd", "rig.timing_cmd", "rig.report", "rig.verify_cmd",
+    "rig.run_cmd", "rig.map_cmd", "rig.align_cmd", "rig.flicker_cmd", "rig.analyze_cmd", "rig.lut_cmd",
+    "rig.pattern_cmd", "rig.plan_cmd", "rig.compare_cmd", "rig.screens_cmd", "rig.timing_cmd", "rig.report",
+    "rig.verify_cmd",
 )
 
 

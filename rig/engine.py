@@ -19,9 +19,9 @@ from typing import Callable
 
 import numpy as np
 
-from analysis.patterns import layout_of, split_screen
+from analysis.patterns import Rect, layout_of, split_in_rect, split_screen
 from rig.errors import FringecalError
-from rig.plans import Checkpoint, Grab, Measurement, SetExposure, Settle, ShowSplit, Stage, Wait
+from rig.plans import Checkpoint, Grab, Measurement, SetExposure, Settle, ShowSplit, Stage, UseRegion, Wait
 
 MAX_RETRIES = 8
 BACKOFF_S = (0.02, 0.05, 0.1, 0.2, 0.5, 1.0)
@@ -64,7 +64,8 @@ class Engine:
         self._stop = False
         self._worker = ThreadPoolExecutor(max_workers=1, thread_name_prefix="analysis")
         self._pending: collections.deque[Future] = collections.deque()
-        self._patterns: dict[tuple[int, int, int], np.ndarray] = {}
+        self._patterns: dict[tuple, np.ndarray] = {}
+        self._region: UseRegion = UseRegion(None)
         self._changed_at = -math.inf
         self._deadline = -math.inf
         self._units_done = 0
@@ -115,6 +116,9 @@ class Engine:
             return None
         if isinstance(step, Grab):
             return self._grab(step)
+        if isinstance(step, UseRegion):
+            self._region = step
+            return None
         if isinstance(step, Wait):
             self.clock.sleep(step.seconds)
             return None
@@ -131,12 +135,17 @@ class Engine:
         raise TypeError(f"plan step: expected one of the step types of rig.plans, got {step!r}")
 
     def _show(self, step: ShowSplit) -> None:
-        key = (step.mirror_gray, step.low, step.high)
+        key = (step.mirror_gray, step.low, step.high, self._region)
         if key not in self._patterns:
             if len(self._patterns) > 8:
                 self._patterns.clear()
             m, p = self.cfg.modulator, self.cfg.pattern
-            self._patterns[key] = split_screen(m.width_px, m.height_px, *key, layout_of(p), m.bit_depth)
+            grays = (step.mirror_gray, step.low, step.high)
+            if self._region.rect is None:
+                self._patterns[key] = split_screen(m.width_px, m.height_px, *grays, layout_of(p), m.bit_depth)
+            else:
+                self._patterns[key] = split_in_rect(m.width_px, m.height_px, Rect(*self._region.rect), *grays,
+                                                    layout_of(p), self._region.background_gray, m.bit_depth)
         self.screen.show(self._patterns[key])
         self._changed_at = self.clock.now()
         self._deadline = self._changed_at
