@@ -23,6 +23,7 @@ from rig.journal import Journal, read_journal
 from rig.lut_files import metadata, write_lut_folder
 from rig.measure import FrameAnalyzer
 from rig.plans import PlanError, exposure_plan, locate_plan, opposite_gray, sweep_plan, tune_plan, warmup_plan
+from rig.report import write_report
 from rig.results import curve_summary, plot_curve, plot_tuning, write_json, write_phase_csv
 from rig.runfolder import RunFolder, command_line, default_run_dir, now_iso
 from rig.safety import add_acknowledgement_flag, ensure_laser_safety
@@ -341,6 +342,7 @@ def finalize(folder: RunFolder, cfg, method: str, bench=None) -> dict:
     summary["lut"] = {"folder": "lut", "window_gray": list(lut.window), "distinct_grays": lut.distinct_grays,
                       "rms_linearity_rad": lut.rms_linearity_rad}
     write_json(folder.path / "analysis.json", summary)
+    write_report(folder.path)
     folder.update(status="complete", ended=now_iso(), range_rad=summary["range_rad"],
                   first_gray_2pi=summary["first_gray_2pi"])
     return summary
@@ -356,7 +358,8 @@ def closing_lines(folder: RunFolder, summary: dict) -> list[str]:
     lines.append(f"lookup table for 0..2 pi uses grays {summary['lut']['window_gray'][0]}.."
                  f"{summary['lut']['window_gray'][1]} ({summary['lut']['distinct_grays']} distinct)")
     lines += [f"warning: {w}" for w in summary["warnings"]]
-    lines.append(f"files in {folder.path}: phase.csv, analysis.json, phase.png, lut/, journal.jsonl, run.json")
+    lines.append(f"files in {folder.path}: report.html, phase.csv, analysis.json, phase.png, lut/, journal.jsonl, "
+                 "run.json")
     return lines
 
 
