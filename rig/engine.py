@@ -4,8 +4,9 @@ Contract:
 - Frames exposed before the settle deadline of the last pattern change are discarded, never analysed.
 - Camera timeouts and incomplete frames are retried with a bounded back-off and counted; ``MAX_RETRIES`` failures in
   a row, or a camera that is gone, raise ``DeviceFault`` after everything analysed so far has been journaled.
-- Analysis and journaling run in one worker thread, in submission order, so the loop waits only on hardware; a
-  checkpoint is journaled after the frames of its unit.
+- Analysis runs in one worker thread and saving (frame crops, journal lines) in a second, each in submission order,
+  so the loop waits only on hardware while they keep up (and on them, past MAX_BACKLOG frames behind, so memory stays
+  bounded); a checkpoint is journaled after the frames of its unit.
 - ``request_stop()`` (Ctrl-C) makes the loop stop before the next pattern change: ``Interrupted`` is raised once the
   worker has drained, leaving the run resumable.
 """
@@ -25,6 +26,7 @@ from rig.plans import Checkpoint, Grab, Measurement, SetExposure, Settle, ShowSp
 
 MAX_RETRIES = 8
 BACKOFF_S = (0.02, 0.05, 0.1, 0.2, 0.5, 1.0)
+MAX_BACKLOG = 64  # frames waiting in either worker before the acquisition loop waits for them
 MAX_STALE = 200  # frames dropped for one grab before the camera is declared out of step with the panel
 
 
@@ -63,7 +65,9 @@ class Engine:
         self._readings: dict = {}
         self._stop = False
         self._worker = ThreadPoolExecutor(max_workers=1, thread_name_prefix="analysis")
+        self._saver = ThreadPoolExecutor(max_workers=1, thread_name_prefix="saving")
         self._pending: collections.deque[Future] = collections.deque()
+        self._saving: collections.deque[Future] = collections.deque()
         self._patterns: dict[tuple, np.ndarray] = {}
         self._region: UseRegion = UseRegion(None)
         self._changed_at = -math.inf
@@ -90,16 +94,19 @@ class Engine:
             self.drain()
 
     def drain(self) -> None:
-        """Wait until every submitted frame is analysed and journaled; re-raise the first worker failure."""
+        """Wait until every submitted frame is analysed and saved; re-raise the first worker failure."""
         while self._pending:
             self._pending.popleft().result()
+        while self._saving:
+            self._saving.popleft().result()
 
     def close(self) -> None:
-        """Drain and stop the worker."""
+        """Drain and stop the workers."""
         try:
             self.drain()
         finally:
             self._worker.shutdown(wait=True)
+            self._saver.shutdown(wait=True)
 
     # --- steps -----------------------------------------------------------------------------------------------
     def _execute(self, step):
@@ -200,13 +207,21 @@ class Engine:
         self.clock.sleep(BACKOFF_S[min(failures - 1, len(BACKOFF_S) - 1)])
         return failures
 
-    # --- worker ----------------------------------------------------------------------------------------------
-    def _submit(self, func, *args) -> Future:
-        while self._pending and self._pending[0].done():
-            self._pending.popleft().result()
-        future = self._worker.submit(func, *args)
-        self._pending.append(future)
+    # --- workers -------------------------------------------------------------------------------------------
+    @staticmethod
+    def _queue(pool: ThreadPoolExecutor, queue: collections.deque, func, *args) -> Future:
+        while queue and (queue[0].done() or len(queue) >= MAX_BACKLOG):
+            queue.popleft().result()
+        future = pool.submit(func, *args)
+        queue.append(future)
         return future
+
+    def _submit(self, func, *args) -> Future:
+        """Run ``func`` in the analysis worker (in order); what it saves goes on to the saving worker."""
+        return self._queue(self._worker, self._pending, func, *args)
+
+    def _save(self, func, *args) -> None:
+        self._queue(self._saver, self._saving, func, *args)
 
     def _analyse(self, frame, step: Grab, number: int, readings: dict):
         result = self.analyzer(frame.image, step.gray, step.purpose, frame.timestamp_s, frame.sequence)
@@ -215,20 +230,28 @@ class Engine:
                   "exposure_s": frame.exposure_s, "phase_rad": result.phase_rad, "phase_std_rad": result.phase_std_rad,
                   "contrast": result.contrast, "peak_fraction": round(result.peak_fraction, 5),
                   "saturated_px": result.saturated_px, **readings}
+        self.publish({"event": "frame", **record, "profile": self.analyzer.profile(frame.image)})
+        self._save(self._store_frame, record, frame, step)
+        return result
+
+    def _store_frame(self, record: dict, frame, step: Grab) -> None:
         if self.on_frame is not None:
             record = self.on_frame(record, frame, step)
         if self.journal is not None:
             self.journal.append(record)
-        self.publish({"event": "frame", **record, "profile": self.analyzer.profile(frame.image)})
-        return result
 
     def _journal_fault(self, kind: str, step: Grab, t_s: float, message: str) -> None:
-        if self.journal is not None:
-            self.journal.append({"fault": kind, "gray": step.gray, "purpose": step.purpose, "t_s": round(t_s, 9),
+        self._save(self._store, {"fault": kind, "gray": step.gray, "purpose": step.purpose, "t_s": round(t_s, 9),
                                  "message": message})
 
     def _checkpoint(self, key: str, t_s: float) -> None:
+        self._save(self._store, {"checkpoint": key, "session": self.session, "t_s": round(t_s, 9)})
+        self._save(self._unit_done, key)
+
+    def _store(self, record: dict) -> None:
         if self.journal is not None:
-            self.journal.append({"checkpoint": key, "session": self.session, "t_s": round(t_s, 9)})
+            self.journal.append(record)
+
+    def _unit_done(self, key: str) -> None:
         self._units_done += 1
         self.publish({"event": "unit", "key": key, "done": self._units_done, "total": self._stage_total})

@@ -8,11 +8,7 @@ from __future__ import annotations
 
 import io
 
-import matplotlib
-
-matplotlib.use("Agg")
-import matplotlib.pyplot as plt  # noqa: E402  (the backend must be chosen first)
-import numpy as np  # noqa: E402
+import numpy as np
 
 # One palette for every figure of the project's pages: ink for data, accents for fits and marks.
 INK = "#1f3b4d"
@@ -22,15 +18,24 @@ SERIES = ("#1f6f8b", "#c2571a", "#5b8c3a", "#7a4f9a", "#b8860b", "#3c3c3c")
 DPI = 110
 
 
+def _plt():
+    """pyplot on the Agg backend, imported on first use: it costs a third of a second that commands without
+    figures should not pay."""
+    import matplotlib
+    matplotlib.use("Agg")
+    import matplotlib.pyplot as plt
+    return plt
+
+
 def _png(fig) -> bytes:
     buf = io.BytesIO()
     fig.savefig(buf, format="png")
-    plt.close(fig)
+    _plt().close(fig)
     return buf.getvalue()
 
 
 def _axes(width_in: float = 7.0, height_in: float = 4.2, ncols: int = 1):
-    fig, axes = plt.subplots(1, ncols, figsize=(width_in, height_in), dpi=DPI, squeeze=False)
+    fig, axes = _plt().subplots(1, ncols, figsize=(width_in, height_in), dpi=DPI, squeeze=False)
     for ax in axes[0]:
         ax.grid(alpha=0.25, lw=0.6)
         for side in ("top", "right"):
@@ -143,7 +148,7 @@ def frame_figure(image, band_xywh: tuple[int, int, int, int], caption: str) -> b
     from matplotlib.patches import Rectangle
 
     h, w = image.shape
-    fig, ax = plt.subplots(figsize=(6.0, max(2.0, 5.2 * h / w)), dpi=DPI)
+    fig, ax = _plt().subplots(figsize=(6.0, max(2.0, 5.2 * h / w)), dpi=DPI)
     ax.imshow(image, cmap="gray", interpolation="nearest")
     x, y, bw, bh = band_xywh
     ax.add_patch(Rectangle((x - 0.5, y - 0.5), bw, bh, fill=False, ec=ACCENT, lw=1.4))
@@ -169,7 +174,8 @@ def drift_figure(t_s, phase_rad, model_t_s=None, model_rad=None) -> bytes:
 
 def logged_figure(series: list[tuple[str, np.ndarray, np.ndarray]]) -> bytes:
     """Logged quantities against time, one panel each: (label with unit, t_s, value)."""
-    fig, axes = plt.subplots(len(series), 1, figsize=(7.0, 2.4 * len(series)), dpi=DPI, sharex=True, squeeze=False)
+    fig, axes = _plt().subplots(len(series), 1, figsize=(7.0, 2.4 * len(series)), dpi=DPI, sharex=True,
+                                squeeze=False)
     for ax, (label, t, v) in zip(axes[:, 0], series):
         ax.plot(t, v, "-", lw=0.9, color=INK)
         ax.set_ylabel(label)

@@ -15,7 +15,10 @@ from analysis.config import config_from_dict
 from analysis.curve import CurveError, phase_curve
 from analysis.fringe import DEFAULT_METHOD, METHODS
 from analysis.lut import build_lut
+from rig.accessories import Accessories, DriftWatch, open_accessories
+from rig.cameras import open_camera
 from rig.cli import load_bench_config
+from rig.clock import MonotonicClock
 from rig.dashboard import EventFile, LiveDashboard, PlainProgress, RunState
 from rig.engine import DeviceFault, Engine, Interrupted
 from rig.errors import UsageError
@@ -27,9 +30,6 @@ from rig.report import write_report
 from rig.results import curve_summary, plot_curve, plot_tuning, write_json, write_phase_csv
 from rig.runfolder import RunFolder, command_line, default_run_dir, now_iso
 from rig.safety import add_acknowledgement_flag, ensure_laser_safety
-from rig.accessories import Accessories, DriftWatch, open_accessories
-from rig.cameras import open_camera
-from rig.clock import MonotonicClock
 from rig.screen import Tee, open_screen
 
 MIN_TUNED_CONTRAST = 0.10

@@ -121,7 +121,7 @@ def test_killed_sweep_resumed_five_times_equals_an_uninterrupted_one(tmp_path):
     wait_for_sweep(events, proc)
     kills = 0
     while True:
-        time.sleep(rng.uniform(0.05, 0.8))
+        time.sleep(rng.uniform(0.05, 0.5))
         if proc.poll() is not None:
             break
         proc.send_signal(signal.SIGKILL)
@@ -129,9 +129,10 @@ def test_killed_sweep_resumed_five_times_equals_an_uninterrupted_one(tmp_path):
         kills += 1
         if kills == 5:
             break
-        proc = subprocess.Popen(sweep_cmd("--resume", str(cut)), stdout=subprocess.DEVNULL,
+        events = tmp_path / f"resume-{kills}.events"
+        proc = subprocess.Popen(sweep_cmd("--resume", str(cut), "--events", str(events)), stdout=subprocess.DEVNULL,
                                 stderr=subprocess.PIPE, text=True)
-        time.sleep(0.3)
+        wait_for_sweep(events, proc)
     assert kills == 5, "the sweep finished before five kills; kill sooner"
     final = subprocess.run(sweep_cmd("--resume", str(cut)), capture_output=True, text=True)
     assert final.returncode == 0, final.stderr
