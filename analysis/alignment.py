@@ -56,3 +56,20 @@ def hint(fig: AlignmentFigures) -> str:
     if fig.contrast < GOOD_CONTRAST:
         return "low contrast: rotate the polarisation (half-wave plate) towards the panel's director"
     return "aligned: fringes are uniform and contrast is good"
+
+
+def best_waveplate_deg(angles_deg, contrast) -> tuple[float, float]:
+    """Half-wave-plate angle (deg, in [0, 90)) of the most fringe contrast, and the fit's rms residual.
+
+    A half-wave plate at angle a turns the polarisation by 2a, and only the component along the director is modulated,
+    so the contrast is an even function of cos^2(2 (a - a0)): periodic in a with 90 degrees. Its 4a harmonic, from a
+    linear least-squares fit of c0 + c1 cos 4a + c2 sin 4a, has its maximum exactly at a0.
+    """
+    a = np.deg2rad(np.asarray(angles_deg, float))
+    v = np.asarray(contrast, float)
+    if a.size < 3:
+        raise ValueError(f"angles_deg: expected at least 3 angles, got {a.size}")
+    design = np.column_stack([np.ones_like(a), np.cos(4 * a), np.sin(4 * a)])
+    coef, *_ = np.linalg.lstsq(design, v, rcond=None)
+    best = np.rad2deg(np.arctan2(coef[2], coef[1]) / 4) % 90.0
+    return float(best), float(np.sqrt(np.mean((design @ coef - v) ** 2)))

@@ -17,7 +17,7 @@ from rich.panel import Panel
 from rich.table import Table
 from rich.text import Text
 
-from analysis.alignment import AlignmentFigures, alignment_figures, hint
+from analysis.alignment import AlignmentFigures, alignment_figures, best_waveplate_deg, hint
 from analysis.patterns import layout_of, split_screen
 from rig.cli import load_bench_config
 from rig.errors import UsageError
@@ -35,6 +35,8 @@ def register(command) -> None:
                    help="stop after S seconds (default: until q; 10 s when input is not a terminal)")
     p.add_argument("--rate", type=float, default=4.0, metavar="HZ", help="updates per second (default 4)")
     p.add_argument("--mirror-gray", type=int, metavar="G", help="gray of the mirror half (default the reference)")
+    p.add_argument("--scan-waveplate", action="store_true",
+                   help="first step the motorised half-wave plate over 90 deg, fit the contrast and move to the best")
     add_acknowledgement_flag(p)
 
 
@@ -167,6 +169,31 @@ def align_loop(cfg, devices, state: AlignState, keys, update, seconds: float, ra
     return state
 
 
+WAVEPLATE_STEPS_DEG = tuple(7.5 * i for i in range(12))  # a half-wave plate repeats every 90 deg
+
+
+def scan_waveplate(cfg, devices, rotator, state: AlignState, report) -> float:
+    """Step the half-wave plate over WAVEPLATE_STEPS_DEG, measure the contrast at each, move to the fitted best."""
+    m, p = cfg.modulator, cfg.pattern
+    camera, clock = devices.camera, devices.clock
+    full_scale = 2**camera.bit_depth - 1
+    dark = cfg.simulator.noise.dark_offset_adu if devices.bench is not None else 0.0
+    devices.screen.show(split_screen(m.width_px, m.height_px, state.mirror_gray, state.low, state.high, layout_of(p),
+                                     m.bit_depth))
+    angles, contrast = [], []
+    for angle in WAVEPLATE_STEPS_DEG:
+        angles.append(rotator.move_to(angle))
+        clock.sleep(cfg.sweep.settle_s)
+        contrast.append(alignment_figures(camera.grab(timeout_s=2.0).image, full_scale, dark).contrast)
+        report(f"half-wave plate {angles[-1]:5.1f} deg: contrast {contrast[-1]:.3f}")
+    best, rms = best_waveplate_deg(angles, contrast)
+    reached = rotator.move_to(best)
+    clock.sleep(cfg.sweep.settle_s)
+    final = alignment_figures(camera.grab(timeout_s=2.0).image, full_scale, dark).contrast
+    report(f"half-wave plate moved to {reached:.2f} deg (cos^2 fit, rms {rms:.3f}): contrast {final:.3f}")
+    return reached
+
+
 def cmd_align(args) -> int:
     """Show the split pattern and update contrast, exposure, fringe period and orientation, their uniformity, a
     coarse picture of the camera image and a hint for the likeliest fault, several times a second."""
@@ -185,6 +212,14 @@ def cmd_align(args) -> int:
     devices = open_devices(cfg, args.sim)
     state = AlignState(cfg.pattern.grating_low, cfg.pattern.grating_high, gray, devices.camera.exposure_s)
     try:
+        if args.scan_waveplate:
+            rotator = devices.accessories.rotator
+            if rotator is None and devices.bench is not None:
+                from simulators.devices import SimRotator
+                rotator = SimRotator(devices.bench)
+            if rotator is None:
+                raise UsageError("--scan-waveplate: no rotation mount configured ([accessories.rotator] port)")
+            scan_waveplate(cfg, devices, rotator, state, lambda line: print(line, flush=True))
         if interactive:
             console = Console()
             with TerminalKeys() as keys, Live(render(state), console=console, refresh_per_second=8) as live:

@@ -95,3 +95,25 @@ class SimCamera:
     def close(self) -> None:
         """Stop the simulated camera; later grabs raise ConnectionError."""
         self.closed = True
+
+
+class SimRotator:
+    """A motorised half-wave plate on the simulated bench: at angle a the polarisation on the panel is turned by 2a
+    from the config's ``polarization_deg``. Same methods as the rig's serial rotation mount."""
+
+    def __init__(self, bench: Bench):
+        self.bench = bench
+        self._zero_deg = bench.polarization_deg
+        self._angle_deg = 0.0
+
+    def angle_deg(self) -> float:
+        """The mount's angle (degrees)."""
+        return self._angle_deg
+
+    def move_to(self, angle_deg: float) -> float:
+        """Turn the plate to ``angle_deg`` (-360..360) and return the angle reached."""
+        if not -360.0 <= angle_deg <= 360.0:
+            raise ValueError(f"sim rotation mount: angle_deg expected -360..360, got {angle_deg!r}")
+        self._angle_deg = float(angle_deg)
+        self.bench.set_polarization_deg(self._zero_deg + 2 * self._angle_deg)
+        return self._angle_deg

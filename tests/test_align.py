@@ -91,3 +91,28 @@ def test_align_command_without_a_terminal_runs_for_its_seconds(small_cfg, tmp_pa
     assert main(["align", "--sim", "--config", str(cfg), "--seconds", "1", "--rate", "5"]) == 0
     lines = [l for l in capsys.readouterr().out.splitlines() if l.startswith("frame")]
     assert 2 <= len(lines) <= 6 and "contrast" in lines[0]
+
+
+def test_waveplate_fit_finds_the_contrast_maximum():
+    """A half-wave plate at a turns the polarisation by 2a (any optics text): contrast ~ f(cos^2 2(a - a0))."""
+    from analysis.alignment import best_waveplate_deg
+    angles = np.arange(0, 90, 7.5)
+    amp = np.cos(2 * np.deg2rad(angles - 61.0)) ** 2
+    contrast = 0.9 * amp / (amp + 0.3 * (1 - amp))
+    best, _ = best_waveplate_deg(angles, contrast)
+    assert best == pytest.approx(61.0, abs=0.05)
+
+
+def test_scan_waveplate_on_the_simulator_turns_the_polarisation_onto_the_director(small_cfg, capsys):
+    """The simulated bench starts 35 deg off the director: the scan must turn the plate by -17.5 deg (mod 90)."""
+    from rig.align_cmd import scan_waveplate
+    from simulators.devices import SimRotator
+    cfg = replace(small_cfg, **{"simulator.response.polarization_deg": 35.0, "pattern.grating_high": 80})
+    devices = open_devices(cfg, sim=True)
+    rotator = SimRotator(devices.bench)
+    lines = []
+    reached = scan_waveplate(cfg, devices, rotator, AlignState(0, 80, 0, devices.camera.exposure_s), lines.append)
+    assert (reached + 17.5) % 90 == pytest.approx(0.0, abs=1.0) or (reached + 17.5) % 90 == pytest.approx(90.0, abs=1.0)
+    assert abs(devices.bench.polarization_deg % 180) < 2.0 or abs(devices.bench.polarization_deg % 180 - 180) < 2.0
+    contrasts = [float(l.rsplit(" ", 1)[1]) for l in lines[:-1]]
+    assert float(lines[-1].rsplit(" ", 1)[1]) >= max(contrasts) - 0.01
