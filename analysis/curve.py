@@ -2,7 +2,10 @@
 
 Frames come in acquisition order with their gray, wrapped phase (rad), standard uncertainty (rad) and time (s).
 Repeats of the reference gray spread through the sweep are drift references: their phase against time is the
-drift, which is subtracted from every frame before the levels are combined.
+drift, which is subtracted from every frame before the levels are combined. Every visit's noise enters the drift
+model and, through it, every level, so the model has only as many terms as the visits show to be there: a curve
+through every visit (or an extrapolation of one beyond the last visit) would add each visit's noise to the levels
+near it, and several times that noise past the last visit.
 """
 
 from __future__ import annotations
@@ -14,6 +17,7 @@ import numpy as np
 from scipy import interpolate, optimize
 
 MAX_DRIFT_DEGREE = 3     # drift is modelled as a polynomial in time of at most this degree
+DRIFT_TERM_CHI2 = 9.0    # a higher drift degree is kept only if it lowers chi-square this much (a 3-sigma term)
 OUTLIER_SIGMAS = 5.0     # frames or levels this many robust standard deviations off are rejected
 SMOOTH_KNOT_SPACING = 16  # gray levels between knots of the monotone smooth fit
 
@@ -24,15 +28,29 @@ class CurveError(ValueError):
 
 @dataclass(frozen=True)
 class DriftModel:
-    """Drift of the fringe phase (rad) against time (s): a polynomial in (t - t0), fitted to reference visits."""
+    """Drift of the fringe phase (rad) against time (s): a polynomial in (t - t0), fitted to reference visits.
+
+    ``covariance`` (rad^2, same order as the coefficients) is that of the weighted fit; ``chi2`` the visits'
+    chi-square about the model, which is near ``n_visits - degree - 1`` when the visit uncertainties are honest.
+    """
 
     coefficients: tuple[float, ...]  # highest power first, as numpy.polyval takes them
     t0_s: float
     n_visits: int
     span_rad: float  # largest minus smallest drift over the sweep
+    covariance: tuple[tuple[float, ...], ...] = ()
+    chi2: float = 0.0
 
     def __call__(self, t_s: np.ndarray) -> np.ndarray:
         return np.polyval(self.coefficients, np.asarray(t_s, dtype=float) - self.t0_s)
+
+    def std_rad(self, t_s: np.ndarray) -> np.ndarray:
+        """Standard uncertainty (rad) of the modelled drift at times ``t_s`` (s), from the visits' noise."""
+        powers = np.vander(np.atleast_1d(np.asarray(t_s, dtype=float)) - self.t0_s, len(self.coefficients))
+        if not self.covariance:
+            return np.zeros(powers.shape[0])
+        cov = np.asarray(self.covariance)
+        return np.sqrt(np.maximum(np.einsum("ij,jk,ik->i", powers, cov, powers), 0.0))
 
 
 @dataclass(frozen=True)
@@ -110,20 +128,40 @@ def unwrap_levels(gray: np.ndarray, phase_rad: np.ndarray, history: int = 4) -> 
 def fit_drift(time_s: np.ndarray, phase_rad: np.ndarray, std_rad: np.ndarray, visit: np.ndarray) -> DriftModel:
     """Drift polynomial through reference frames (time, wrapped phase, std, visit number).
 
-    Frames of one visit are averaged first; visits are unwrapped in time order. The degree is the number of
-    visits less one, at most MAX_DRIFT_DEGREE: higher degrees would chase the references' own noise.
+    Frames of one visit are averaged first; visits are unwrapped in time order. The degree starts at 0 and goes up
+    while one more power lowers the visits' weighted chi-square by DRIFT_TERM_CHI2 or more, up to MAX_DRIFT_DEGREE
+    (and the number of visits less one): a term the visits cannot show to be there only carries their noise into
+    the levels. The visits' uncertainties must be honest for this test; circular_mean never lets them fall below
+    the scatter of a visit's own frames.
     """
     visits = np.unique(visit)
     t = np.array([time_s[visit == v].mean() for v in visits])
     means = [circular_mean(phase_rad[visit == v], std_rad[visit == v]) for v in visits]
     phi = np.unwrap(np.array([m for m, _ in means]))
     err = np.array([max(s, 1e-9) for _, s in means])
-    degree = min(MAX_DRIFT_DEGREE, len(visits) - 1)
     t0 = float(t[0])
-    coeffs = np.polyfit(t - t0, phi, degree, w=1 / err) if degree > 0 else np.array([float(np.average(phi))])
+    # Scaled time keeps the normal equations well conditioned; coefficients are converted back below.
+    scale = max(float(np.ptp(t)), 1e-9)
+    x = (t - t0) / scale
+
+    def fit(degree):
+        design = np.vander(x, degree + 1) / err[:, None]
+        cov = np.linalg.inv(design.T @ design)
+        coeffs = cov @ design.T @ (phi / err)
+        return coeffs, cov, float(np.sum((design @ coeffs - phi / err) ** 2))
+
+    coeffs, cov, chi2 = fit(0)
+    for degree in range(1, min(MAX_DRIFT_DEGREE, len(visits) - 1) + 1):
+        trial = fit(degree)
+        if chi2 - trial[2] < DRIFT_TERM_CHI2:
+            break
+        coeffs, cov, chi2 = trial
+    unscale = scale ** -np.arange(coeffs.size - 1, -1, -1.0)
+    coeffs, cov = coeffs * unscale, cov * np.outer(unscale, unscale)
     ts = np.linspace(t.min(), t.max(), 64) - t0
     values = np.polyval(coeffs, ts)
-    return DriftModel(tuple(float(c) for c in coeffs), t0, len(visits), float(values.max() - values.min()))
+    return DriftModel(tuple(float(c) for c in coeffs), t0, len(visits), float(values.max() - values.min()),
+                      tuple(tuple(float(c) for c in row) for row in cov), chi2)
 
 
 def monotone_fit(gray: np.ndarray, phase_rad: np.ndarray, std_rad: np.ndarray) -> np.ndarray:
@@ -165,7 +203,7 @@ def phase_curve(gray, phase_rad, std_rad, time_s=None, contrast=None, reference_
     ``time_s`` defaults to the acquisition index. ``sign`` +1 or -1 fixes the direction; None picks the one that
     makes the curve rise with gray overall (its least-squares slope is positive). A reference-gray frame that
     comes after frames of other grays starts a new drift visit; with two or more visits the drift is fitted and
-    removed. Frames more than OUTLIER_SIGMAS off their level's mean (levels of three or more frames) and levels
+    removed, and its uncertainty at each level's time joins the level's standard error. Frames more than OUTLIER_SIGMAS off their level's mean (levels of three or more frames) and levels
     that far off the median of their neighbours are rejected and listed.
     """
     gray = np.asarray(gray, dtype=int)
@@ -207,6 +245,9 @@ def phase_curve(gray, phase_rad, std_rad, time_s=None, contrast=None, reference_
                 keep[idx[bad]] = False
                 idx = idx[~bad]
         m, e = circular_mean(phase[idx], std[idx])
+        if drift is not None:
+            # The drift model's own error is common to a level's frames: it adds to the mean, not per frame.
+            e = math.hypot(e, float(drift.std_rad(time_s[idx].mean())[0]))
         means.append(m)
         errors.append(e)
         counts.append(idx.size)
