@@ -8,6 +8,7 @@ from __future__ import annotations
 
 import dataclasses
 import difflib
+import json
 import math
 import tomllib
 import typing
@@ -298,6 +299,34 @@ def as_dict(obj) -> dict:
         else:
             out[f.name] = value
     return out
+
+
+def to_toml(cfg: Config) -> str:
+    """The config as TOML text that load_config reads back to an equal Config."""
+    lines: list[str] = []
+
+    def value(v):
+        if isinstance(v, bool):
+            return "true" if v else "false"
+        if isinstance(v, str):
+            return json.dumps(v)
+        if isinstance(v, (list, tuple)):
+            return "[" + ", ".join(value(x) for x in v) + "]"
+        return repr(v)
+
+    def table(name, node):
+        scalars = {k: v for k, v in node.items() if not isinstance(v, dict)}
+        if scalars:
+            lines.append(f"[{name}]")
+            lines.extend(f"{k} = {value(v)}" for k, v in scalars.items())
+            lines.append("")
+        for k, v in node.items():
+            if isinstance(v, dict):
+                table(f"{name}.{k}", v)
+
+    for section, node in as_dict(cfg).items():
+        table(section, node)
+    return "\n".join(lines)
 
 
 def _build(cls, raw, source, prefix):

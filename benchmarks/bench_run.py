@@ -7,24 +7,10 @@ import tempfile
 from pathlib import Path
 
 from analysis.config import config_from_dict
+from configs import HERE
 from rig.cli import main
 from rig.plans import run_seconds
 
-SMALL = """
-[modulator]
-width_px = 400
-height_px = 300
-[laser]
-power_mw = 0.25
-[camera]
-width_px = 256
-height_px = 200
-[geometry]
-distance_mm = 40.0
-camera_offset_mm = [-0.42, 0.0]
-[simulator.beam]
-radius_mm = 1.0
-"""
 REALTIME = """
 [sweep]
 settle_s = 0.02
@@ -67,7 +53,8 @@ def _toml(text: str) -> dict:
 def run():
     with tempfile.TemporaryDirectory() as tmp:
         folder = Path(tmp)
-        rows = [timed_sweep(folder, SMALL + REALTIME, "small bench (256x200 camera)"),
+        small = (HERE / "small-bench.toml").read_text()
+        rows = [timed_sweep(folder, small + REALTIME, "small bench (256x200 camera)"),
                 timed_sweep(folder, REALTIME, "demo bench (1280x1024 camera)")]
         with contextlib.redirect_stdout(io.StringIO()):
             assert main(["tune", "--sim", "--out", str(folder / "tune"), "--yes"]) == 0

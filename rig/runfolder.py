@@ -1,6 +1,7 @@
 """The run folder: what ran, with what, and everything it measured.
 
     run.json        config snapshot, versions, host, times, devices, exposure, tuned pair, band, status
+    config.toml     the same config as a file, to run the same bench again with --config
     journal.jsonl   one line per analysed frame and per finished unit (rig.journal)
     frames/         16-bit PNG crops of the fringe band (gNNN-fNNNNN.png), unless --no-frames
     manifest.csv    gray,file,time_s of the saved crops in acquisition order (so `fringecal analyze` reads them)
@@ -23,7 +24,7 @@ from pathlib import Path
 import cv2
 import numpy as np
 
-from analysis.config import as_dict
+from analysis.config import as_dict, to_toml
 from rig import __version__
 from rig.atomic import write_atomic
 from rig.errors import UsageError
@@ -71,6 +72,7 @@ class RunFolder:
         if save_frames:
             folder.frames_dir.mkdir(exist_ok=True)
         folder.write_info()
+        write_atomic(path / "config.toml", to_toml(cfg).encode())
         return folder
 
     @classmethod

@@ -7,16 +7,11 @@ os.environ.setdefault("MPLBACKEND", "Agg")
 import numpy as np
 import pytest
 
-from analysis.config import load_config, replace
+from analysis.config import load_config, replace, to_toml
 from analysis.patterns import layout_of, split_screen
-from configs import DEFAULT_SIM
+from configs import DEFAULT_SIM, HERE
 
-SMALL = {
-    "modulator.width_px": 400, "modulator.height_px": 300,
-    "camera.width_px": 256, "camera.height_px": 200,
-    "geometry.distance_mm": 40.0, "geometry.camera_offset_mm": [-0.42, 0.0],
-    "simulator.beam.radius_mm": 1.0, "laser.power_mw": 0.25,
-}
+SMALL_CONFIG = HERE / "small-bench.toml"
 
 
 @pytest.fixture(scope="session")
@@ -26,9 +21,16 @@ def demo_cfg():
 
 
 @pytest.fixture(scope="session")
-def small_cfg(demo_cfg):
-    """A 400x300 panel seen by a 256x200 camera at 40 mm: same optics, frames in milliseconds."""
-    return replace(demo_cfg, **SMALL)
+def small_cfg():
+    """configs/small-bench.toml: a 400x300 panel seen by a 256x200 camera at 40 mm, same physics, fast frames."""
+    return load_config(SMALL_CONFIG)
+
+
+def small_config_file(folder, name="bench.toml", **changes):
+    """Write the small bench with dotted-key ``changes`` (e.g. **{"sweep.levels": [0, 80]}) as a TOML file."""
+    path = folder / name
+    path.write_text(to_toml(replace(load_config(SMALL_CONFIG), **changes)))
+    return path
 
 
 def split_for(cfg, mirror_gray, low=None, high=None):

@@ -2,7 +2,7 @@
 
 import numpy as np
 import pytest
-from conftest import split_for
+from conftest import small_config_file, split_for
 
 from analysis.alignment import AlignmentFigures, alignment_figures, hint
 from analysis.config import replace
@@ -84,10 +84,7 @@ def test_view_renders_figures_picture_and_hint(small_cfg):
 
 
 def test_align_command_without_a_terminal_runs_for_its_seconds(small_cfg, tmp_path, capsys):
-    cfg = tmp_path / "small.toml"
-    cfg.write_text("[modulator]\nwidth_px = 400\nheight_px = 300\n[laser]\npower_mw = 0.25\n[camera]\nwidth_px = 256\n"
-                   "height_px = 200\n[geometry]\ndistance_mm = 40.0\ncamera_offset_mm = [-0.42, 0.0]\n"
-                   "[simulator.beam]\nradius_mm = 1.0\n")
+    cfg = small_config_file(tmp_path)
     assert main(["align", "--sim", "--config", str(cfg), "--seconds", "1", "--rate", "5"]) == 0
     lines = [l for l in capsys.readouterr().out.splitlines() if l.startswith("frame")]
     assert 2 <= len(lines) <= 6 and "contrast" in lines[0]

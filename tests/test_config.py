@@ -84,3 +84,12 @@ def test_cli_turns_a_misspelt_key_into_one_line_and_exit_2(tmp_path):
     lines = out.stderr.strip().splitlines()
     assert len(lines) == 1 and "[camera.exposure] unknown key" in lines[0] and "exposure_s" in lines[0]
     assert "Traceback" not in out.stderr and not (tmp_path / "t.csv").exists()
+
+
+@pytest.mark.parametrize("name", ["tweezers-1064.toml", "tweezers-780.toml", "bench-template.toml", "small-bench.toml"])
+def test_a_config_written_as_toml_reads_back_equal(tmp_path, name):
+    from analysis.config import to_toml
+    cfg = load_config(HERE / name)
+    path = tmp_path / "again.toml"
+    path.write_text(to_toml(cfg))
+    assert load_config(path) == cfg

@@ -4,34 +4,14 @@ import json
 
 import numpy as np
 import pytest
+from conftest import small_config_file
 
 from analysis.flicker import flicker_figures
 from rig.cli import main
 
-FLICKER_TOML = """
-[modulator]
-width_px = 400
-height_px = 300
-[laser]
-power_mw = 0.25
-[camera]
-width_px = 256
-height_px = 200
-exposure_s = 0.0002
-[geometry]
-distance_mm = 40.0
-camera_offset_mm = [-0.42, 0.0]
-[pattern]
-grating_high = 80
-[simulator.beam]
-radius_mm = 1.0
-[simulator.timing]
-frame_rate_hz = 1000.0
-flicker_rad = 0.05
-flicker_hz = 120.0
-vibration_urad = 0.0
-"""
-
+FLICKER = {"camera.exposure_s": 0.0002, "pattern.grating_high": 80, "simulator.timing.frame_rate_hz": 1000.0,
+           "simulator.timing.flicker_rad": 0.05, "simulator.timing.flicker_hz": 120.0,
+           "simulator.timing.vibration_urad": 0.0}
 
 def test_sine_flicker_rms_peak_to_peak_and_frequency():
     """A sine of amplitude a has rms a / sqrt(2) and peak to peak 2a; its line sits at its frequency."""
@@ -53,8 +33,7 @@ def test_ripple_faster_than_nyquist_is_flagged_when_its_frequency_is_known():
 
 
 def test_flicker_command_recovers_the_simulated_ripple(tmp_path, capsys):
-    cfg = tmp_path / "flicker.toml"
-    cfg.write_text(FLICKER_TOML)
+    cfg = small_config_file(tmp_path, **FLICKER)
     out = tmp_path / "run"
     assert main(["flicker", "--sim", "--config", str(cfg), "--gray", "60", "--seconds", "1", "--out", str(out),
                  "--json"]) == 0

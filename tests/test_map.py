@@ -4,35 +4,16 @@ import json
 
 import numpy as np
 import pytest
+from conftest import small_config_file
 
 from analysis.panelmap import fit_surface, parse_grid, tiles
 from rig.cli import main
 
-MAP_TOML = """
-[modulator]
-width_px = 400
-height_px = 300
-[laser]
-power_mw = 1.0
-[camera]
-width_px = 800
-height_px = 600
-[geometry]
-distance_mm = 40.0
-camera_offset_mm = [0.0, 0.0]
-[pattern]
-grating_high = 80
-[sweep]
-levels = [LEVELS]
-reference_every = 8
-[simulator.beam]
-profile = "flat-top"
-radius_mm = 3.0
-[simulator.response]
-thickness_variation = 0.1
-[simulator.timing]
-vibration_urad = 0.0
-""".replace("LEVELS", ", ".join(map(str, list(range(0, 256, 12)) + [255])))
+MAP = {"laser.power_mw": 1.0, "camera.width_px": 800, "camera.height_px": 600,
+       "geometry.camera_offset_mm": [0.0, 0.0], "pattern.grating_high": 80,
+       "sweep.levels": list(range(0, 256, 12)) + [255], "sweep.reference_every": 8,
+       "simulator.beam.profile": "flat-top", "simulator.beam.radius_mm": 3.0,
+       "simulator.response.thickness_variation": 0.1, "simulator.timing.vibration_urad": 0.0}
 
 
 def test_tiles_cover_the_panel_and_grids_parse():
@@ -56,8 +37,7 @@ def test_surface_fits_a_quadratic_exactly():
 
 
 def test_map_recovers_each_tiles_range(tmp_path, capsys):
-    cfg = tmp_path / "map.toml"
-    cfg.write_text(MAP_TOML)
+    cfg = small_config_file(tmp_path, **MAP)
     out = tmp_path / "map"
     assert main(["map", "--sim", "--config", str(cfg), "--grid", "2x2", "--out", str(out), "--yes"]) == 0
     summary = json.loads((out / "map.json").read_text())
@@ -77,8 +57,7 @@ def test_map_recovers_each_tiles_range(tmp_path, capsys):
 
 
 def test_map_resumes_after_the_camera_fails(tmp_path, capsys):
-    cfg = tmp_path / "map.toml"
-    cfg.write_text(MAP_TOML + "[simulator.faults]\ndie_after_frames = 120\n")
+    cfg = small_config_file(tmp_path, **MAP, **{"simulator.faults.die_after_frames": 120})
     out = tmp_path / "map"
     assert main(["map", "--sim", "--config", str(cfg), "--grid", "1x2", "--out", str(out), "--yes"]) == 3
     for _ in range(6):

@@ -7,28 +7,12 @@ from html.parser import HTMLParser
 
 import pytest
 
+from conftest import small_config_file
+
 from rig.cli import main
 from rig.report import FIGURE_DIR, SAFETY_NOTE, write_report
 
 # a small bench and a sweep of every 8th gray: a complete run folder in a few seconds
-QUICK_TOML = """
-[modulator]
-width_px = 400
-height_px = 300
-[laser]
-power_mw = 0.25
-[camera]
-width_px = 256
-height_px = 200
-[geometry]
-distance_mm = 40.0
-camera_offset_mm = [-0.42, 0.0]
-[simulator.beam]
-radius_mm = 1.0
-[sweep]
-levels = [""" + ", ".join(map(str, range(0, 256, 8))) + """, 255]
-reference_every = 8
-"""
 VOID = {"meta", "img", "br", "hr", "link", "input"}
 EXPECTED = ("curve", "residuals", "table", "tuning", "frame", "drift")
 
@@ -59,8 +43,9 @@ class Checker(HTMLParser):
 @pytest.fixture(scope="module")
 def run_folder(tmp_path_factory):
     root = tmp_path_factory.mktemp("report")
-    (root / "quick.toml").write_text(QUICK_TOML)
-    assert main(["run", "--sim", "--config", str(root / "quick.toml"), "--out", str(root / "run"), "--yes"]) == 0
+    quick = small_config_file(root, "quick.toml", **{"sweep.levels": list(range(0, 256, 8)) + [255],
+                                                    "sweep.reference_every": 8})
+    assert main(["run", "--sim", "--config", str(quick), "--out", str(root / "run"), "--yes"]) == 0
     return root / "run"
 
 

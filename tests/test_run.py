@@ -12,26 +12,10 @@ from pathlib import Path
 
 import numpy as np
 import pytest
+from conftest import small_config_file
 
 from rig.cli import main
 from rig.journal import read_journal
-
-SMALL_TOML = """
-[modulator]
-width_px = 400
-height_px = 300
-[laser]
-power_mw = 0.25
-[camera]
-width_px = 256
-height_px = 200
-[geometry]
-distance_mm = 40.0
-camera_offset_mm = [-0.42, 0.0]
-[simulator.beam]
-radius_mm = 1.0
-"""
-
 
 def read_csv(path):
     with open(path) as fh:
@@ -109,7 +93,7 @@ def unit_counts(folder: Path):
 
 
 def test_killed_sweep_resumed_five_times_equals_an_uninterrupted_one(tmp_path):
-    cfg = config_file(tmp_path, SMALL_TOML)
+    cfg = small_config_file(tmp_path)
     whole, cut = tmp_path / "whole", tmp_path / "cut"
     common = ["--sim", "--config", str(cfg), "--yes", "--pair", "0:80"]
     subprocess.run(sweep_cmd(*common, "--out", str(whole)), check=True, capture_output=True)
@@ -148,8 +132,8 @@ def test_killed_sweep_resumed_five_times_equals_an_uninterrupted_one(tmp_path):
 
 
 def test_sweep_completes_through_timeouts_and_incomplete_frames(tmp_path):
-    cfg = config_file(tmp_path, SMALL_TOML + "[simulator.faults]\ntimeout_rate = 0.05\ncorrupt_rate = 0.01\n"
-                      "[sweep]\nlevels = [" + ", ".join(map(str, range(0, 256, 2))) + "]\n")
+    cfg = small_config_file(tmp_path, **{"simulator.faults.timeout_rate": 0.05, "simulator.faults.corrupt_rate": 0.01,
+                                         "sweep.levels": list(range(0, 256, 2))})
     run = tmp_path / "run"
     assert main(["sweep", "--sim", "--config", str(cfg), "--out", str(run), "--yes", "--pair", "0:80"]) == 0
     contents = read_journal(run / "journal.jsonl")
@@ -163,7 +147,7 @@ def test_sweep_completes_through_timeouts_and_incomplete_frames(tmp_path):
 
 
 def test_camera_that_dies_stops_cleanly_and_the_run_resumes(tmp_path, capsys):
-    cfg = config_file(tmp_path, SMALL_TOML + "[simulator.faults]\ndie_after_frames = 200\n")
+    cfg = small_config_file(tmp_path, **{"simulator.faults.die_after_frames": 200})
     run = tmp_path / "run"
     assert main(["sweep", "--sim", "--config", str(cfg), "--out", str(run), "--yes", "--pair", "0:80"]) == 3
     err = capsys.readouterr().err
@@ -182,7 +166,7 @@ def test_camera_that_dies_stops_cleanly_and_the_run_resumes(tmp_path, capsys):
 
 
 def test_ctrl_c_stops_after_the_level_and_leaves_the_run_resumable(tmp_path):
-    cfg = config_file(tmp_path, SMALL_TOML)
+    cfg = small_config_file(tmp_path)
     run, events = tmp_path / "run", tmp_path / "events"
     proc = subprocess.Popen(sweep_cmd("--sim", "--config", str(cfg), "--yes", "--pair", "0:80", "--out", str(run),
                                       "--events", str(events)), stdout=subprocess.PIPE, stderr=subprocess.PIPE,
@@ -224,7 +208,7 @@ def test_an_existing_run_folder_is_never_overwritten(tmp_path):
 
 
 def test_analyze_reads_a_run_folder_and_agrees_with_the_run(tmp_path):
-    cfg = config_file(tmp_path, SMALL_TOML + "[sweep]\nlevels = [" + ", ".join(map(str, range(0, 256, 5))) + "]\n")
+    cfg = small_config_file(tmp_path, **{"sweep.levels": list(range(0, 256, 5))})
     run, again = tmp_path / "run", tmp_path / "again"
     assert main(["sweep", "--sim", "--config", str(cfg), "--out", str(run), "--yes", "--pair", "0:80"]) == 0
     assert main(["analyze", str(run), "--out", str(again)]) == 0

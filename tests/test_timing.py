@@ -5,32 +5,14 @@ import re
 
 import pytest
 
+from conftest import small_config_file
+
 from rig.cli import main
-
-SMALL_TOML = """
-[modulator]
-width_px = 400
-height_px = 300
-[laser]
-power_mw = 0.25
-[camera]
-width_px = 256
-height_px = 200
-[geometry]
-distance_mm = 40.0
-camera_offset_mm = [-0.42, 0.0]
-[simulator.beam]
-radius_mm = 1.0
-[simulator.timing]
-display_latency_s = {latency}
-lc_tau_s = {tau}
-"""
-
 
 @pytest.mark.parametrize("latency, tau", [(0.017, 0.005), (0.045, 0.01)])
 def test_timing_recovers_the_simulated_latency(tmp_path, capsys, latency, tau):
-    cfg = tmp_path / "bench.toml"
-    cfg.write_text(SMALL_TOML.format(latency=latency, tau=tau))
+    cfg = small_config_file(tmp_path, **{"simulator.timing.display_latency_s": latency,
+                                         "simulator.timing.lc_tau_s": tau})
     assert main(["timing", "--sim", "--config", str(cfg), "--cycles", "12"]) == 0
     out = capsys.readouterr().out
     found = float(re.search(r"display latency: ([\d.]+) ms", out).group(1)) / 1e3

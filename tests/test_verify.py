@@ -10,6 +10,8 @@ from hypothesis import strategies as st
 
 from analysis.efficiency import linearity, staircase_efficiency, swanson_efficiency
 from analysis.lut import build_lut
+from conftest import small_config_file
+
 from rig.cli import main
 from rig.lut_files import metadata, write_lut_folder
 from rig.verify_cmd import Table, blazed_grays
@@ -63,10 +65,7 @@ def test_verify_on_the_simulator_shows_the_tables_improvement(tmp_path, small_cf
     within 5 % of sinc^2(1/N) (Swanson 1989); without it both are far worse. The camera's efficiency agrees with
     the staircase formula applied to the true phases of the grays shown."""
     folder, lut, true_phase = truth_table
-    config = tmp_path / "small.toml"
-    config.write_text("[modulator]\nwidth_px = 400\nheight_px = 300\n[laser]\npower_mw = 0.25\n[camera]\n"
-                      "width_px = 256\nheight_px = 200\n[geometry]\ndistance_mm = 40.0\ncamera_offset_mm = [-0.42, 0.0]\n"
-                      "[simulator.beam]\nradius_mm = 1.0\n")
+    config = small_config_file(tmp_path)
     assert main(["verify", "--sim", "--config", str(config), "--lut", str(folder), "--targets", "16",
                  "--frames", "1"]) == 0
     assert "the table passes" in capsys.readouterr().out

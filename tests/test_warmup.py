@@ -5,6 +5,7 @@ import math
 
 import numpy as np
 import pytest
+from conftest import small_config_file
 
 from analysis.config import config_from_dict
 from rig.cli import main
@@ -12,23 +13,7 @@ from rig.journal import read_journal
 from rig.plans import FrameResult, Grab, Measurement, Wait, warmup_plan
 from simulators.bench import Bench
 
-SMALL = """
-[modulator]
-width_px = 400
-height_px = 300
-[laser]
-power_mw = 0.25
-[camera]
-width_px = 256
-height_px = 200
-[geometry]
-distance_mm = 40.0
-camera_offset_mm = [-0.42, 0.0]
-[simulator.beam]
-radius_mm = 1.0
-[sweep]
-levels = [0, 64, 128, 192, 255]
-"""
+LEVELS = {"sweep.levels": [0, 64, 128, 192, 255]}
 
 
 def test_plan_stops_once_the_slope_is_below_the_limit():
@@ -58,8 +43,8 @@ def test_plan_stops_once_the_slope_is_below_the_limit():
 def test_sweep_waits_for_a_warming_panel(tmp_path, capsys):
     """The run's warm-up ends near where the simulator's own fringe-phase slope falls below the limit."""
     warm = {"warmup_k": 15.0, "warmup_tau_s": 200.0}
-    cfg = tmp_path / "warm.toml"
-    cfg.write_text(SMALL + "[simulator.timing]\nwarmup_k = 15.0\nwarmup_tau_s = 200.0\nvibration_urad = 0.0\n")
+    cfg = small_config_file(tmp_path, **LEVELS, **{"simulator.timing." + k: v for k, v in warm.items()},
+                            **{"simulator.timing.vibration_urad": 0.0})
     run = tmp_path / "run"
     assert main(["sweep", "--sim", "--config", str(cfg), "--out", str(run), "--yes", "--pair", "0:80",
                  "--warmup-minutes", "60"]) == 0
@@ -81,8 +66,7 @@ def test_sweep_waits_for_a_warming_panel(tmp_path, capsys):
 
 
 def test_a_cold_bench_with_no_warm_up_ends_after_one_window(tmp_path):
-    cfg = tmp_path / "cold.toml"
-    cfg.write_text(SMALL)
+    cfg = small_config_file(tmp_path, **LEVELS)
     run = tmp_path / "run"
     assert main(["sweep", "--sim", "--config", str(cfg), "--out", str(run), "--yes", "--pair", "0:80",
                  "--warmup-minutes", "5"]) == 0
