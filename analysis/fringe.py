@@ -8,7 +8,8 @@ Every estimator models the band as I = B + Re[C exp(i theta)], theta = 2 pi (fx 
   lobe, transform back, average the complex signal over the band (weights = local amplitude).
 - ``carrier-lsq``: linear least squares over every band pixel at the known carrier, with background B and complex
   envelope C both low-order polynomials, so envelope variation, small chirp or rotation and stray light are part
-  of the model rather than a bias. Clipped pixels are left out exactly (a low-rank update of the normal equations).
+  of the model rather than a bias; the band edges the carrier crosses are tapered by a smooth window. Clipped
+  pixels are left out exactly (a low-rank update of the normal equations).
 """
 
 from __future__ import annotations
@@ -23,6 +24,10 @@ from analysis.band import Band
 from analysis.carrier import Carrier
 
 POLY_ORDER = 2  # total degree of the background and envelope polynomials of carrier-lsq
+TAPER_PERIODS = 3.0  # carrier-lsq window: raised-cosine ramps this many fringe periods wide at the knife edges
+NOISE_STRIDE = 8  # pixel_noise_var filters every 8th line: 1/8 of a band still gives the variance to ~1 %
+NOISE_LINES = 64  # ... but never fewer lines than this (small bands), for the same precision
+NEAR_LINE_PX = 16  # the single-line cosine fit takes its noise from the lines this close to its own
 EDGE_PERIODS = 2.5  # the Fourier method's wrap-around error has decayed below 1e-3 this far from a band edge
 
 
@@ -58,36 +63,45 @@ def exposure(image: np.ndarray, band: Band, full_scale: int, dark_adu: float = 0
 
 @dataclass(frozen=True)
 class LsqModel:
-    """Precomputed carrier-lsq fit for one band and carrier: separable basis and the normal-equation solve.
+    """Precomputed carrier-lsq fit for one band and carrier: separable basis, window and normal equations.
 
     Each basis image is a sum of products v_q(y) u_p(x) of 1-D functions (Legendre polynomials times the carrier's
-    cosine or sine along that axis), so the moments V^T I U of a frame give A^T I for every basis image at the cost
-    of one small matrix product per frame.
+    cosine or sine along that axis), so the moments V^T I U of a frame give A^T W I for every basis image at the
+    cost of one small matrix product per frame. The window W = wy(y) wx(x) is folded into u and v.
     """
 
     band: Band
     carrier: Carrier
-    u: np.ndarray        # (width, n_u) x functions
-    v: np.ndarray        # (height, n_v) y functions
+    u: np.ndarray        # (width, n_u) x functions times the x window
+    v: np.ndarray        # (height, n_v) y functions times the y window
+    wx: np.ndarray       # (width,) x window
+    wy: np.ndarray       # (height,) y window
     combo: np.ndarray    # (n_params, n_v, n_u): basis image k = sum combo[k] * v(y) u(x)
-    normal: np.ndarray   # A^T A
-    inverse: np.ndarray  # (A^T A)^-1
+    normal: np.ndarray   # A^T W A
+    normal2: np.ndarray  # A^T W^2 A, for the covariance of a weighted fit
+    inverse: np.ndarray  # (A^T W A)^-1
     solve: np.ndarray    # (n_params, n_v * n_u): params = solve @ moments
-    mean_weights: np.ndarray  # band mean of each basis polynomial
+    mean_weights: np.ndarray  # window-weighted band mean of each basis polynomial
     n_background: int
 
 
-def lsq_model(band: Band, carrier: Carrier, order: int = POLY_ORDER) -> LsqModel:
-    """Build the carrier-lsq model for ``band`` at ``carrier`` with polynomials of total degree ``order``."""
-    def axis(n, f):
+def lsq_model(band: Band, carrier: Carrier, order: int = POLY_ORDER, taper_periods: float = TAPER_PERIODS
+              ) -> LsqModel:
+    """Build the carrier-lsq model for ``band`` at ``carrier``: polynomials of total degree ``order``, and a
+    raised-cosine taper ``taper_periods`` fringe periods wide (at most a quarter of the band) at the two band edges
+    that the carrier crosses."""
+    along_x = abs(carrier.fx) >= abs(carrier.fy)
+
+    def axis(n, f, tapered):
         s = np.arange(n) - (n - 1) / 2
         legendre = np.polynomial.legendre.legvander(s / max((n - 1) / 2, 1), order)  # (n, order + 1)
         arg = 2 * np.pi * f * s
         funcs = np.concatenate([legendre, legendre * np.cos(arg)[:, None], legendre * np.sin(arg)[:, None]], axis=1)
-        return funcs, legendre.mean(axis=0)
+        window = _taper(n, min(taper_periods * carrier.period_px, n / 4)) if tapered else np.ones(n)
+        return funcs, window, window @ legendre / window.sum()
 
-    u, mu = axis(band.width, carrier.fx)
-    v, mv = axis(band.height, carrier.fy)
+    u, wx, mu = axis(band.width, carrier.fx, along_x)
+    v, wy, mv = axis(band.height, carrier.fy, not along_x)
     k = order + 1
     one, cos, sin = 0, k, 2 * k  # offsets of the plain, cosine and sine blocks in u and v
     terms = [(a, b) for a in range(k) for b in range(k) if a + b <= order]
@@ -100,35 +114,52 @@ def lsq_model(band: Band, carrier: Carrier, order: int = POLY_ORDER) -> LsqModel
         combo[n_bg + 2 * j, sin + b, sin + a] = -1.0
         combo[n_bg + 2 * j + 1, cos + b, sin + a] = 1.0
         combo[n_bg + 2 * j + 1, sin + b, cos + a] = 1.0
-    normal = np.einsum("pba,qcd,bc,ad->pq", combo, combo, v.T @ v, u.T @ u, optimize=True)
+
+    def gram(py, px):
+        return np.einsum("pba,qcd,bc,ad->pq", combo, combo, v.T @ (py[:, None] * v), u.T @ (px[:, None] * u),
+                         optimize=True)
+
+    normal, normal2 = gram(wy, wx), gram(wy**2, wx**2)
     flat = combo.reshape(combo.shape[0], -1)
     mean_weights = np.array([mu[a] * mv[b] for a, b in terms])
     inverse = np.linalg.inv(normal)
-    return LsqModel(band, carrier, u, v, combo, normal, inverse, inverse @ flat, mean_weights, n_bg)
+    return LsqModel(band, carrier, u * wx[:, None], v * wy[:, None], wx, wy, combo, normal, normal2, inverse,
+                    inverse @ flat, mean_weights, n_bg)
+
+
+def _taper(n: int, width: float) -> np.ndarray:
+    """Window of n samples: 1 inside, a raised cosine over ``width`` samples at each end."""
+    ramp = np.clip((np.minimum(np.arange(n), np.arange(n)[::-1]) + 0.5) / max(width, 1e-9), 0.0, 1.0)
+    return 0.5 - 0.5 * np.cos(np.pi * ramp)
 
 
 def carrier_lsq(image: np.ndarray, model: LsqModel, dark_adu: float = 0.0, clip_adu: float | None = None
                 ) -> PhaseEstimate:
-    """Phase by linear least squares over the band at the model's carrier (see the module docstring).
+    """Phase by windowed linear least squares over the band at the model's carrier (see the module docstring).
 
+    The phase is that of the window-weighted band mean of the fitted envelope C. The window tapers the band edges
+    that the carrier crosses: those are the images of the split's knife edges, where light diffracted past the
+    edge (the grating's zero order among it) beats with the first order at the carrier with a phase that does not
+    follow the mirror gray, and a hard cut there would weigh the oscillating tail of that light at full strength.
     Pixels at or above ``clip_adu`` are excluded from the fit. The uncertainty is the parameter covariance
-    sigma^2 (A^T A)^-1 with sigma^2 from the residual sum of squares.
+    sigma^2 N^-1 (A^T W^2 A) N^-1 with sigma^2 the pixel noise variance measured by pixel_noise_var, not from the
+    fit's residual: on bright frames that residual is mostly fine structure of the beams the smooth envelope does
+    not follow (the same in every frame, so not noise).
     """
     crop = np.asarray(image)[model.band.slices].astype(np.float64)
     moments = (model.v.T @ crop @ model.u).ravel()
-    n = crop.size
-    sum_sq = float(np.vdot(crop, crop))
-    at_i = model.combo.reshape(model.combo.shape[0], -1) @ moments
+    normal2 = model.normal2
     if clip_adu is not None and crop.max() >= clip_adu:
-        # Leave clipped pixels out: subtract their rows of A from A^T I and A^T A (exact, cheap for a few).
+        # Leave clipped pixels out: subtract their rows of A from A^T W I, A^T W A and A^T W^2 A (exact, cheap for
+        # a few). Rows from the windowed u, v carry the window once; dividing by it gives the plain rows.
         ys, xs = np.nonzero(crop >= clip_adu)
-        rows = np.einsum("pba,cb,ca->cp", model.combo, model.v[ys], model.u[xs], optimize=True)
-        values = crop[ys, xs]
-        at_i = at_i - rows.T @ values
-        inverse = np.linalg.inv(model.normal - rows.T @ rows)
+        weighted = np.einsum("pba,cb,ca->cp", model.combo, model.v[ys], model.u[xs], optimize=True)
+        w = model.wy[ys] * model.wx[xs]
+        rows = weighted / np.maximum(w, 1e-300)[:, None]
+        at_i = model.combo.reshape(model.combo.shape[0], -1) @ moments - weighted.T @ crop[ys, xs]
+        inverse = np.linalg.inv(model.normal - weighted.T @ rows)
+        normal2 = normal2 - weighted.T @ weighted
         params = inverse @ at_i
-        n -= ys.size
-        sum_sq -= float(values @ values)
     else:
         params = model.solve @ moments
         inverse = model.inverse
@@ -138,14 +169,41 @@ def carrier_lsq(image: np.ndarray, model: LsqModel, dark_adu: float = 0.0, clip_
     c_re = float(params[nb::2] @ w)
     c_im = -float(params[nb + 1::2] @ w)  # Re[C e^{i theta}] = Re C cos theta - Im C sin theta
     amplitude = math.hypot(c_re, c_im)
-    rss = max(sum_sq - float(params @ at_i), 0.0)
-    sigma2 = rss / max(n - params.size, 1)
     grad = np.zeros(params.size)
     # d phase = (Re C d Im C - Im C d Re C) / |C|^2
     grad[nb::2] = -c_im * w / max(amplitude**2, 1e-300)
     grad[nb + 1::2] = -c_re * w / max(amplitude**2, 1e-300)
-    std = math.sqrt(max(sigma2 * float(grad @ inverse @ grad), 0.0))
+    sens = inverse @ grad
+    sigma2 = pixel_noise_var(crop, model.carrier, model.wx, model.wy)
+    std = math.sqrt(max(sigma2 * float(sens @ normal2 @ sens), 0.0))
     return PhaseEstimate(math.atan2(c_im, c_re), amplitude, amplitude / max(background - dark_adu, 1e-9), std)
+
+
+def pixel_noise_var(crop: np.ndarray, carrier: Carrier, wx: np.ndarray | None = None, wy: np.ndarray | None = None
+                    ) -> float:
+    """Temporal noise variance (ADU^2) of a band's pixels, from one frame, weighted by the window squared.
+
+    Along the image axis nearer the fringes' direction the fringe signal is a sinusoid of low frequency f on a
+    smooth background; the 4-tap filter (1 - z)(1 - 2 cos(2 pi f) z + z^2) removes a constant, a linear trend and
+    that sinusoid exactly, so what passes is the pixel noise (times the filter's power gain) plus the curvature
+    of the envelopes, which is negligible over four pixels. Every NOISE_STRIDE-th line across (at least NOISE_LINES
+    lines) is enough: the variance needs only about 1 % precision. Lines are weighted by the window squared, as
+    they enter the phase's variance, so noise that grows with brightness (shot noise) is counted where the fit
+    listens. NaN for a crop fewer than four pixels long down the fringes.
+    """
+    along_x = abs(carrier.fx) >= abs(carrier.fy)
+    if crop.shape[0 if along_x else 1] < 4:
+        return math.nan
+    stride = max(1, min(NOISE_STRIDE, crop.shape[1 if along_x else 0] // NOISE_LINES))
+    # A contiguous copy of the sampled lines, with the filter running down axis 0.
+    lines = np.ascontiguousarray(crop[:, ::stride] if along_x else crop[::stride, :].T, dtype=np.float64)
+    across = wx if along_x else wy
+    weight = np.ones(lines.shape[1]) if across is None else across[::stride] ** 2
+    k = 1 + 2 * math.cos(2 * math.pi * (carrier.fy if along_x else carrier.fx))
+    out = lines[:-3] - lines[3:]  # taps (1, -k, k, -1)
+    out += k * (lines[2:-1] - lines[1:-2])
+    power = float(np.einsum("ij,ij->j", out, out) @ weight) / (out.shape[0] * max(float(weight.sum()), 1e-300))
+    return power / (2 + 2 * k**2)
 
 
 def fourier(image: np.ndarray, band: Band, carrier: Carrier, dark_adu: float = 0.0) -> PhaseEstimate:
@@ -193,15 +251,20 @@ def cosine_fit(image: np.ndarray, band: Band, carrier: Carrier, dark_adu: float 
     The profile runs along the carrier's main axis (x for |fx| >= |fy|): the band averaged across that axis, or
     only ``line`` (a row or column index of the image) as in the classic single-line practice. The period p is
     fitted too, starting from the carrier; s is measured from the band centre. The uncertainty comes from the
-    Jacobian, sigma^2 (J^T J)^-1.
+    Jacobian, sigma^2 (J^T J)^-1, with sigma^2 the profile's noise from pixel_noise_var (over the band, or the
+    lines within NEAR_LINE_PX of ``line``) rather than the fit's residual, which the beams' fine structure
+    dominates on bright frames.
     """
     crop = np.asarray(image)[band.slices].astype(np.float64)
     along_x = abs(carrier.fx) >= abs(carrier.fy)
     if line is None:
         profile = crop.mean(axis=0 if along_x else 1)
+        noise_var = pixel_noise_var(crop, carrier) / crop.shape[0 if along_x else 1]
     else:
         index = line - (band.y0 if along_x else band.x0)
         profile = crop[index, :] if along_x else crop[:, index]
+        near = slice(max(index - NEAR_LINE_PX, 0), index + NEAR_LINE_PX + 1)
+        noise_var = pixel_noise_var(crop[near, :] if along_x else crop[:, near], carrier)
     f0 = carrier.fx if along_x else carrier.fy
     s = np.arange(profile.size) - (profile.size - 1) / 2
     # Linear least squares at the carrier's frequency gives a starting point inside the right basin.
@@ -217,10 +280,8 @@ def cosine_fit(image: np.ndarray, band: Band, carrier: Carrier, dark_adu: float 
     offset, amp, _, phi = fit.x
     if amp < 0:
         amp, phi = -amp, phi + math.pi
-    dof = max(profile.size - 4, 1)
-    sigma2 = float(fit.fun @ fit.fun) / dof
     try:
-        cov = np.linalg.inv(fit.jac.T @ fit.jac) * sigma2
+        cov = np.linalg.inv(fit.jac.T @ fit.jac) * noise_var
         std = math.sqrt(max(cov[3, 3], 0.0))
     except np.linalg.LinAlgError:
         std = math.inf
@@ -229,6 +290,8 @@ def cosine_fit(image: np.ndarray, band: Band, carrier: Carrier, dark_adu: float 
 
 
 METHODS = ("carrier-lsq", "fourier", "cosine-fit")
+# The analysis benchmark's best: least error against the simulator's truth, nearest the bound, honest
+# uncertainty, and the only estimator fast enough for every frame of a live sweep.
 DEFAULT_METHOD = "carrier-lsq"
 
 
