@@ -8,29 +8,21 @@ import json
 import numpy as np
 
 from analysis.flicker import flicker_figures
-from analysis.fringe import DEFAULT_METHOD, METHODS
 from rig.atomic import write_atomic
 from rig.errors import UsageError
 from rig.plans import hold_plan
 from rig.results import write_json
-from rig.run_cmd import Session, _guarded, _prepare, auto_exposure, estimate_dark, locate
-from rig.safety import add_acknowledgement_flag
+from rig.run_cmd import Session, guarded, prepare_run, add_run_options, auto_exposure, locate, take_dark
 
 
 def register(command) -> None:
     p = command("flicker", cmd_flicker, "phase flicker of one gray level: rms, peak to peak, spectrum")
-    p.add_argument("--sim", action="store_true", help="use the built-in simulated bench")
+    add_run_options(p)
     p.add_argument("--gray", type=int, required=True, metavar="G", help="gray level of the mirror half to hold")
     p.add_argument("--seconds", type=float, default=2.0, metavar="S", help="how long to record (default 2)")
     p.add_argument("--expect-hz", type=float, metavar="F",
                    help="the panel's drive frequency if known: warns when the frame rate cannot resolve it")
-    p.add_argument("--out", metavar="DIR", help="run folder to create (default: runs/YYYYmmdd-HHMMSS)")
     p.add_argument("--json", action="store_true", help="print the figures as JSON on stdout")
-    p.add_argument("--events", metavar="FILE", help="also write progress events as JSON lines to FILE")
-    p.add_argument("--method", choices=METHODS, default=DEFAULT_METHOD,
-                   help=f"fringe-phase estimator (default {DEFAULT_METHOD})")
-    p.add_argument("--no-frames", action="store_true", help="do not save the fringe-band crops")
-    add_acknowledgement_flag(p)
 
 
 def cmd_flicker(args) -> int:
@@ -38,15 +30,14 @@ def cmd_flicker(args) -> int:
     frame's fringe phase and report its rms and peak-to-peak flicker, its spectrum and dominant frequency."""
     if args.seconds <= 0:
         raise UsageError(f"--seconds: expected a duration above 0, got {args.seconds}")
-    args.yes = True
-    cfg, folder = _prepare(args, "flicker")
+    cfg, folder = prepare_run(args, "flicker")
     if not 0 <= args.gray <= cfg.gray_max:
         raise UsageError(f"--gray: expected a gray level in [0, {cfg.gray_max}], got {args.gray}")
     low, high = cfg.pattern.grating_low, cfg.pattern.grating_high
 
     def body():
         with Session(args, cfg, folder, "fringecal flicker") as s:
-            estimate_dark(s)
+            take_dark(s)
             auto_exposure(s, low, high)
             locate(s, low, high)
             rate = getattr(s.devices.camera, "frame_rate_hz", None) or 1.0 / max(s.devices.camera.exposure_s, 1e-3)
@@ -79,7 +70,7 @@ def cmd_flicker(args) -> int:
                 print(f"warning: {w}")
         return 0
 
-    return _guarded(folder, body)
+    return guarded(folder, body)
 
 
 def _warnings(fig, expect_hz) -> list[str]:

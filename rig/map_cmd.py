@@ -11,7 +11,6 @@ from analysis.band import Band
 from analysis.carrier import Carrier
 from analysis.config import config_from_dict
 from analysis.curve import phase_curve
-from analysis.fringe import DEFAULT_METHOD, METHODS
 from analysis.lut import build_lut
 from analysis.panelmap import fit_surface, parse_grid, tiles
 from analysis.patterns import grating_half, layout_of
@@ -21,25 +20,17 @@ from rig.journal import read_journal
 from rig.lut_files import metadata, write_lut_folder
 from rig.plans import UseRegion, sweep_plan
 from rig.results import write_json, write_phase_csv
-from rig.run_cmd import Session, _guarded, _prepare, auto_exposure, estimate_dark, locate, tune
+from rig.run_cmd import Session, guarded, prepare_run, add_run_options, auto_exposure, locate, take_dark, tune
 from rig.runfolder import RunFolder, now_iso
-from rig.safety import add_acknowledgement_flag
 
 
 def register(command) -> None:
     p = command("map", cmd_map, "calibrate each tile of the panel: maps of its non-uniformity, per-tile tables")
-    p.add_argument("--sim", action="store_true", help="use the built-in simulated bench")
+    add_run_options(p)
     p.add_argument("--grid", metavar="RxC", help="tiles in rows x columns, e.g. 3x3")
-    p.add_argument("--out", metavar="DIR", help="run folder to create (default: runs/YYYYmmdd-HHMMSS)")
     p.add_argument("--resume", metavar="RUN_DIR", help="continue an interrupted map in RUN_DIR")
     p.add_argument("--background-gray", type=int, metavar="G",
                    help="gray shown outside the tile being measured (default: the reference gray)")
-    p.add_argument("--yes", action="store_true", help="ask nothing (unattended runs)")
-    p.add_argument("--method", choices=METHODS, default=DEFAULT_METHOD,
-                   help=f"fringe-phase estimator (default {DEFAULT_METHOD})")
-    p.add_argument("--events", metavar="FILE", help="also write progress events as JSON lines to FILE")
-    p.add_argument("--no-frames", action="store_true", help="do not save the fringe-band crops of each frame")
-    add_acknowledgement_flag(p)
 
 
 def _region(tile, background: int):
@@ -68,13 +59,12 @@ def cmd_map(args) -> int:
             rows, cols = parse_grid(args.grid)
         except ValueError as err:
             raise UsageError(str(err)) from None
-        args.yes = True
-        cfg, folder = _prepare(args, "map")
+        cfg, folder = prepare_run(args, "map")
         background = cfg.sweep.reference_gray if args.background_gray is None else args.background_gray
         if not 0 <= background <= cfg.gray_max:
             raise UsageError(f"--background-gray: expected a gray level in [0, {cfg.gray_max}], got {background}")
         folder.update(map={"rows": rows, "cols": cols, "background_gray": background, "tiles": {}})
-    return _guarded(folder, lambda: _measure(args, cfg, folder))
+    return guarded(folder, lambda: _measure(args, cfg, folder))
 
 
 def _measure(args, cfg, folder: RunFolder) -> int:
@@ -87,7 +77,7 @@ def _measure(args, cfg, folder: RunFolder) -> int:
     frames_before = max((r["frame"] for r in contents.records if "frame" in r), default=0) if contents else 0
     with Session(args, cfg, folder, "fringecal map", max(times, default=0.0), frames_before) as s:
         if "pair" not in folder.info:
-            estimate_dark(s)
+            take_dark(s)
             centre = grid[len(grid) // 2]
             s.engine.run(_region(centre, background))
             auto_exposure(s, cfg.pattern.grating_low, cfg.pattern.grating_high)

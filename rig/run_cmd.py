@@ -44,20 +44,25 @@ def register(command) -> None:
     )
     for name, func, help_text in specs:
         p = command(name, func, help_text)
-        p.add_argument("--sim", action="store_true", help="use the built-in simulated bench")
-        p.add_argument("--out", metavar="DIR", help="run folder to create (default: runs/YYYYmmdd-HHMMSS)")
-        p.add_argument("--yes", action="store_true", help="ask nothing (unattended runs)")
-        p.add_argument("--method", choices=METHODS, default=DEFAULT_METHOD,
-                       help=f"fringe-phase estimator (default {DEFAULT_METHOD})")
-        p.add_argument("--events", metavar="FILE", help="also write progress events as JSON lines to FILE")
-        p.add_argument("--no-frames", action="store_true", help="do not save the fringe-band crops of each frame")
-        add_acknowledgement_flag(p)
+        add_run_options(p)
         if name in ("sweep", "run"):
             p.add_argument("--warmup-minutes", type=float, default=0.0, metavar="M",
                            help="before measuring, hold a pattern until the fringe phase is stable, at most M minutes")
         if name == "sweep":
             p.add_argument("--resume", metavar="RUN_DIR", help="continue an interrupted sweep in RUN_DIR")
             p.add_argument("--pair", metavar="LOW:HIGH", help="grating gray pair (default: the config's)")
+
+
+def add_run_options(p) -> None:
+    """The options every command that makes a run folder shares (tune, sweep, run, map, flicker)."""
+    p.add_argument("--sim", action="store_true", help="use the built-in simulated bench")
+    p.add_argument("--out", metavar="DIR", help="run folder to create (default: runs/YYYYmmdd-HHMMSS)")
+    p.add_argument("--yes", action="store_true", help="ask nothing (unattended runs)")
+    p.add_argument("--method", choices=METHODS, default=DEFAULT_METHOD,
+                   help=f"fringe-phase estimator (default {DEFAULT_METHOD})")
+    p.add_argument("--events", metavar="FILE", help="also write progress events as JSON lines to FILE")
+    p.add_argument("--no-frames", action="store_true", help="do not save the fringe-band crops of each frame")
+    add_acknowledgement_flag(p)
 
 
 # --- devices -------------------------------------------------------------------------------------------------
@@ -364,7 +369,7 @@ def closing_lines(folder: RunFolder, summary: dict) -> list[str]:
 
 
 # --- commands ------------------------------------------------------------------------------------------------
-def _prepare(args, what: str):
+def prepare_run(args, what: str):
     cfg = load_bench_config(args)
     ensure_laser_safety(cfg.laser.laser_class, cfg.laser.wavelength_nm,
                         sim=args.sim or cfg.camera.backend == "sim",
@@ -378,7 +383,7 @@ def _prepare(args, what: str):
     return cfg, folder
 
 
-def _guarded(folder: RunFolder, body) -> int:
+def guarded(folder: RunFolder, body) -> int:
     """Run ``body``; turn stops and failures into a run.json status, a one-line message and an exit code."""
     try:
         return body()
@@ -403,7 +408,7 @@ def _guarded(folder: RunFolder, body) -> int:
 
 def cmd_tune(args) -> int:
     """Find the low/high gray pair of the grating whose phase step is pi: the pair with the most fringe contrast."""
-    cfg, folder = _prepare(args, "tune")
+    cfg, folder = prepare_run(args, "tune")
 
     def body():
         with Session(args, cfg, folder, "fringecal tune") as s:
@@ -416,7 +421,7 @@ def cmd_tune(args) -> int:
               f"{result.pi_step_gray:.1f} gray levels; curve in {folder.path / 'tune.csv'} and tune.png")
         return 0
 
-    return _guarded(folder, body)
+    return guarded(folder, body)
 
 
 def _parse_pair(text: str, gmax: int) -> tuple[int, int]:
@@ -433,7 +438,7 @@ def cmd_sweep(args) -> int:
     """Step the mirror half through every gray level at a fixed grating pair, with drift references."""
     if args.resume:
         return _resume(args)
-    cfg, folder = _prepare(args, "sweep")
+    cfg, folder = prepare_run(args, "sweep")
     low, high = (_parse_pair(args.pair, cfg.gray_max) if args.pair
                  else (cfg.pattern.grating_low, cfg.pattern.grating_high))
 
@@ -447,7 +452,7 @@ def cmd_sweep(args) -> int:
             bench = s.devices.bench
         return _finish(folder, cfg, args.method, bench)
 
-    return _guarded(folder, body)
+    return guarded(folder, body)
 
 
 def _resume(args) -> int:
@@ -480,7 +485,7 @@ def _resume(args) -> int:
             bench = s.devices.bench
         return _finish(folder, cfg, args.method, bench)
 
-    return _guarded(folder, body)
+    return guarded(folder, body)
 
 
 def _finish(folder, cfg, method, bench) -> int:
@@ -492,7 +497,7 @@ def _finish(folder, cfg, method, bench) -> int:
 
 def cmd_run(args) -> int:
     """The main job: exposure, grating-pair tuning, the sweep, the phase curve, the lookup table, a summary."""
-    cfg, folder = _prepare(args, "run")
+    cfg, folder = prepare_run(args, "run")
 
     def body():
         with Session(args, cfg, folder, "fringecal run") as s:
@@ -506,4 +511,4 @@ def cmd_run(args) -> int:
             bench = s.devices.bench
         return _finish(folder, cfg, args.method, bench)
 
-    return _guarded(folder, body)
+    return guarded(folder, body)
