@@ -347,9 +347,9 @@ def finalize(folder: RunFolder, cfg, method: str, bench=None) -> dict:
     summary["lut"] = {"folder": "lut", "window_gray": list(lut.window), "distinct_grays": lut.distinct_grays,
                       "rms_linearity_rad": lut.rms_linearity_rad}
     write_json(folder.path / "analysis.json", summary)
-    write_report(folder.path)
     folder.update(status="complete", ended=now_iso(), range_rad=summary["range_rad"],
                   first_gray_2pi=summary["first_gray_2pi"])
+    write_report(folder.path)  # after the status: the page says how the run ended
     return summary
 
 

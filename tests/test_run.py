@@ -217,3 +217,11 @@ def test_analyze_reads_a_run_folder_and_agrees_with_the_run(tmp_path):
     diff = np.array([float(a["phase_rad"]) - float(b["phase_rad"]) for a, b in zip(first, second)])
     assert np.max(np.abs(diff - diff.mean())) < 0.02
     assert json.loads((again / "analysis.json").read_text())["drift"]["time_base"] == "time_s"
+
+
+def test_the_report_of_a_finished_run_says_it_is_complete(tmp_path):
+    cfg = small_config_file(tmp_path, **{"sweep.levels": list(range(0, 256, 15))})
+    run = tmp_path / "run"
+    assert main(["run", "--sim", "--config", str(cfg), "--out", str(run), "--yes"]) == 0
+    page = (run / "report.html").read_text()
+    assert "complete" in page and "not finished" not in page
