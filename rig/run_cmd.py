@@ -160,6 +160,7 @@ class Session:
     def __init__(self, args, cfg, folder: RunFolder, title: str, start_s: float = 0.0, frames_before: int = 0):
         self.cfg, self.folder = cfg, folder
         self.devices = open_devices(cfg, args.sim, start_s)
+        folder.update(devices={**folder.info.get("devices", {}), "identity": self.devices.identity})
         cam = self.devices.camera
         self.analyzer = FrameAnalyzer(2**cam.bit_depth - 1, dark_adu=folder.info.get("dark_adu", 0.0),
                                       method=args.method)

@@ -225,3 +225,14 @@ def test_the_report_of_a_finished_run_says_it_is_complete(tmp_path):
     assert main(["run", "--sim", "--config", str(cfg), "--out", str(run), "--yes"]) == 0
     page = (run / "report.html").read_text()
     assert "complete" in page and "not finished" not in page
+
+
+def test_run_json_says_what_ran_with_what(tmp_path):
+    cfg = small_config_file(tmp_path, **{"sweep.levels": [0, 100, 200, 255]})
+    run = tmp_path / "run"
+    assert main(["sweep", "--sim", "--config", str(cfg), "--out", str(run), "--yes", "--pair", "0:80"]) == 0
+    info = json.loads((run / "run.json").read_text())
+    assert info["devices"]["identity"]["camera"].startswith("simulated camera 256x200")
+    assert info["config"]["camera"]["width_px"] == 256 and info["versions"]["fringecal"]
+    assert info["started"] and info["ended"] and info["exposure_s"] > 0 and info["pair"] == {"low": 0, "high": 80}
+    assert (run / "config.toml").read_text().startswith("[modulator]")
