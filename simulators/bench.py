@@ -13,6 +13,8 @@ Modelling choices (documented so that tests can hold the simulator to them):
 - Incident polarisation at ``polarization_deg`` to the director: the aligned part (cos) is modulated, the rest
   (sin) reflects from the whole panel as from a mirror and adds to the image incoherently.
 - A panel tilt alpha (vibration, drift) adds 2 k alpha . c_r to region r, c_r being its illuminated centroid.
+  Regions never straddle the configured split line, so a mirror half and grating stripes of one gray stay apart
+  and each takes the piston of its own half.
 - A frame uses the panel state at the middle of its exposure; flicker is averaged over the exposure exactly.
 """
 
@@ -29,6 +31,7 @@ import numpy as np
 from scipy import ndimage
 
 from analysis.config import Config
+from analysis.patterns import grating_half, layout_of
 from simulators.optics import (CameraSampler, Propagator, beam_field, camera_points_um, centred_coords_um,
                                photons_per_joule)
 from simulators.response import PanelResponse, order_factor
@@ -141,6 +144,8 @@ class Bench:
         self._states: collections.deque[PanelState] = collections.deque(maxlen=6)
         self._lock = threading.Lock()
 
+        # regions never straddle the configured split line: a region's tilt piston is taken in its own half
+        self._side = grating_half(m.width_px, m.height_px, layout_of(cfg.pattern)).astype(np.int32)
         blank = np.zeros((m.height_px, m.width_px), np.uint16)
         whole = np.ones(blank.shape, bool)
         self._whole_key = _mask_key(whole)
@@ -178,18 +183,19 @@ class Bench:
     def _next_state(self, old: PanelState, pattern: np.ndarray, t_c: float) -> PanelState:
         tau = self.cfg.simulator.timing.lc_tau_s
         n_gray = self.response.gray_max + 1
-        combined = old.labels * n_gray + pattern
+        combined = (old.labels * n_gray + pattern) * 2 + self._side
         counts = np.bincount(combined.ravel())
         present = np.flatnonzero(counts)
         lut = np.zeros(present[-1] + 1, np.int32)
         groups: dict[tuple, int] = {}
         starts: list[tuple[int, float]] = []
         for code in present:
-            label, gray = divmod(int(code), n_gray)
+            rest, side = divmod(int(code), 2)
+            label, gray = divmod(rest, n_gray)
             start = old.regions[label].retardance(t_c, tau)
             target = float(self.response.retardance_rad(gray))
-            # regions that need no transient merge by gray, so labels stay few over a long sweep
-            group = (gray,) if abs(start - target) < 1e-9 else (gray, label)
+            # regions that need no transient merge by gray (within their half), so labels stay few over a sweep
+            group = (gray, side) if abs(start - target) < 1e-9 else (gray, side, label)
             if group not in groups:
                 groups[group] = len(groups)
                 starts.append((gray, start))

@@ -268,3 +268,19 @@ def test_patterns_with_more_regions_than_the_cache_still_render(small_cfg):
         bench.clock.sleep(0.2)
         image = bench.irradiance(bench.clock.now(), 0.0)
         assert np.all(np.isfinite(image)) and image.max() > 0
+
+
+def test_a_mirror_at_the_gratings_low_gray_still_tilts_as_the_mirror_half(small_cfg):
+    """A panel tilt moves the fringes by 2 k alpha times the lever arm between the mirror half and the grating half,
+    whether or not the mirror's gray equals the grating's low gray (and whatever the panel showed before)."""
+    cfg = replace(small_cfg, **{"simulator.timing.vibration_urad": 0.0})
+    shifts = []
+    for before in (0, 120):  # from rest at the same gray, or from another gray
+        bench = Bench(cfg)
+        settled_irradiance(bench, split_for(cfg, before))
+        settled_irradiance(bench, split_for(cfg, 0))
+        t = bench.clock.now()
+        base = band_phasor(bench.irradiance(t, 0.0).reshape(200, 256), cfg, BAND)
+        tilted = band_phasor(bench.irradiance(t, 0.0, tilt_urad=(2.0, 0.0)).reshape(200, 256), cfg, BAND)
+        shifts.append(np.angle(tilted / base))
+    assert shifts[0] == pytest.approx(shifts[1], abs=1e-4) and abs(shifts[0]) > 1e-3
