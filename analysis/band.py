@@ -12,6 +12,7 @@ import numpy as np
 from scipy import ndimage
 
 from analysis.carrier import Carrier, NoFringesError, find_carrier
+from analysis.patterns import Rect
 
 MIN_CONTRAST = 0.05      # below this visibility no estimator gives a useful phase
 AMPLITUDE_FRACTION = 0.3  # band pixels have at least this fraction of the peak local fringe amplitude
@@ -19,34 +20,7 @@ PERIOD_TOLERANCE = 0.1   # band pixels have a local frequency within this fracti
 HARMONIC_RATIO = 0.5     # where the twice-carrier beat is this strong the grating's +1/-1 orders overlap
 
 
-@dataclass(frozen=True)
-class Band:
-    """Image rectangle in pixels, half-open: columns x0..x1-1, rows y0..y1-1."""
-
-    x0: int
-    x1: int
-    y0: int
-    y1: int
-
-    @property
-    def width(self) -> int:
-        return self.x1 - self.x0
-
-    @property
-    def height(self) -> int:
-        return self.y1 - self.y0
-
-    @property
-    def slices(self) -> tuple[slice, slice]:
-        """(rows, columns) slices for indexing an image."""
-        return slice(self.y0, self.y1), slice(self.x0, self.x1)
-
-    def check_inside(self, shape: tuple[int, int], what: str = "roi") -> None:
-        """Raise ValueError unless the band is a non-empty rectangle inside an image of ``shape`` (rows, cols)."""
-        h, w = shape
-        if not (0 <= self.x0 < self.x1 <= w and 0 <= self.y0 < self.y1 <= h):
-            raise ValueError(f"{what}: expected x0:x1,y0:y1 inside the {w}x{h} px image, "
-                             f"got {self.x0}:{self.x1},{self.y0}:{self.y1}")
+Band = Rect  # the fringe band is an image rectangle, the same kind of value as a panel rectangle
 
 
 @dataclass(frozen=True)

@@ -12,7 +12,7 @@ import numpy as np
 
 @dataclass(frozen=True)
 class Rect:
-    """Panel rectangle in pixels, half-open: columns x0..x1-1, rows y0..y1-1."""
+    """Rectangle in pixels (of the panel or of an image), half-open: columns x0..x1-1, rows y0..y1-1."""
 
     x0: int
     x1: int
@@ -26,6 +26,18 @@ class Rect:
     @property
     def height(self) -> int:
         return self.y1 - self.y0
+
+    @property
+    def slices(self) -> tuple[slice, slice]:
+        """(rows, columns) slices for indexing an image or the panel."""
+        return slice(self.y0, self.y1), slice(self.x0, self.x1)
+
+    def check_inside(self, shape: tuple[int, int], what: str = "roi") -> None:
+        """Raise ValueError unless this is a non-empty rectangle inside an image of ``shape`` (rows, cols)."""
+        h, w = shape
+        if not (0 <= self.x0 < self.x1 <= w and 0 <= self.y0 < self.y1 <= h):
+            raise ValueError(f"{what}: expected x0:x1,y0:y1 inside the {w}x{h} px image, "
+                             f"got {self.x0}:{self.x1},{self.y0}:{self.y1}")
 
 
 @dataclass(frozen=True)
@@ -105,8 +117,7 @@ def split_in_rect(width: int, height: int, rect: Rect, mirror_gray: int, low: in
                   layout: SplitLayout, background_gray: int, bit_depth: int = 8) -> np.ndarray:
     """Split-screen pattern drawn inside ``rect`` (split measured within the rectangle), uniform elsewhere."""
     _check_gray("background_gray", background_gray, bit_depth)
-    if not (0 <= rect.x0 < rect.x1 <= width and 0 <= rect.y0 < rect.y1 <= height):
-        raise ValueError(f"rect: expected a rectangle inside the {width}x{height} panel, got {rect}")
+    rect.check_inside((height, width), "rect")
     inner = split_screen(rect.width, rect.height, mirror_gray, low, high, layout, bit_depth)
     out = np.full((height, width), background_gray, dtype=dtype_for(bit_depth))
     out[rect.y0:rect.y1, rect.x0:rect.x1] = inner
