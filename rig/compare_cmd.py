@@ -47,6 +47,30 @@ def _coefficients_line(model) -> str:
             f"reference {model.reference_nm:g} nm")
 
 
+def temperature_shifts(results) -> list[str]:
+    """For curves of one wavelength measured at two or more logged temperatures: how the range moves per kelvin
+    (a straight-line fit of range against temperature) and the curve shift between the coldest and warmest."""
+    lines = []
+    by_nm: dict[float, list] = {}
+    for r in results:
+        if r.wavelength_nm and r.info.get("temperature_c") is not None:
+            by_nm.setdefault(r.wavelength_nm, []).append(r)
+    for nm, group in sorted(by_nm.items()):
+        temps = np.array([r.info["temperature_c"] for r in group])
+        if len(group) < 2 or np.ptp(temps) < 0.1:
+            continue
+        spans = np.array([float(r.curve.phase_rad[-1] - r.curve.phase_rad[0]) for r in group])
+        slope = float(np.polyfit(temps, spans, 1)[0])
+        cold, warm = group[int(np.argmin(temps))], group[int(np.argmax(temps))]
+        grays = np.intersect1d(cold.curve.gray, warm.curve.gray)
+        shift = (np.interp(grays, warm.curve.gray, warm.curve.phase_rad)
+                 - np.interp(grays, cold.curve.gray, cold.curve.phase_rad))
+        lines.append(f"temperature at {nm:g} nm: range {slope * 1e3:+.1f} mrad per K over {temps.min():.1f}.."
+                     f"{temps.max():.1f} C; warmest minus coldest curve: mean {shift.mean() * 1e3:+.1f} mrad, "
+                     f"largest {shift[np.argmax(np.abs(shift))] * 1e3:+.1f} mrad")
+    return lines
+
+
 def cmd_compare(args) -> int:
     """Overlay the curves of one panel measured at several wavelengths and check them against the panel model.
 
@@ -60,8 +84,11 @@ def cmd_compare(args) -> int:
     if args.out and not Path(args.out).parent.exists():
         raise UsageError(f"--out: folder {Path(args.out).parent} does not exist")
     results = [read_result(spec, "RUN") for spec in args.runs]
-    model = _fit(results, "RUN") if all(r.wavelength_nm for r in results) else None
-    print(f"{'curve':<28} {'nm':>7} {'range rad':>10} {'2pi at':>7} {'ratio':>16} {'model':>7} {'misfit mrad':>12}")
+    wavelengths = [r.wavelength_nm for r in results]
+    # the dispersion model needs distinct wavelengths; curves of one wavelength are compared as they are
+    model = _fit(results, "RUN") if all(wavelengths) and len(set(wavelengths)) == len(wavelengths) else None
+    print(f"{'curve':<28} {'nm':>7} {'temp C':>7} {'range rad':>10} {'2pi at':>7} {'ratio':>16} {'model':>7} "
+          f"{'misfit mrad':>12}")
     for i, r in enumerate(results):
         c = r.curve
         span = float(c.phase_rad[-1] - c.phase_rad[0])
@@ -74,7 +101,12 @@ def cmd_compare(args) -> int:
             ratio = f"{model.ratios[i]:.4f} ± {model.ratio_std[i]:.4f}"
             modelled = f"{float(scale(r.wavelength_nm, model.reference_nm, model.b_um2, model.c_um4)):.4f}"
             misfit = f"{1e3 * model.residual_rms_rad[i]:.1f}"
-        print(f"{r.label[-28:]:<28} {nm:>7} {span:>10.3f} {first:>7} {ratio:>16} {modelled:>7} {misfit:>12}")
+        temp = r.info.get("temperature_c")
+        temp = "-" if temp is None else f"{temp:.1f}"
+        print(f"{r.label[-28:]:<28} {nm:>7} {temp:>7} {span:>10.3f} {first:>7} {ratio:>16} {modelled:>7} "
+              f"{misfit:>12}")
+    for line in temperature_shifts(results):
+        print(line)
     if model is not None:
         print(_coefficients_line(model))
         if model.tied:

@@ -102,7 +102,9 @@ def open_devices(cfg, sim: bool, start_s: float = 0.0) -> Devices:
         identity = {"screen": f"simulated panel {cfg.modulator.width_px}x{cfg.modulator.height_px}",
                     "camera": f"simulated camera {cfg.camera.width_px}x{cfg.camera.height_px}",
                     "simulator_seed": cfg.simulator.seed}
-        return Devices(SimScreen(bench), SimCamera(bench), bench.clock, bench, identity)
+        accessories = open_accessories(cfg.accessories)  # serial gadgets with a port work beside a simulated bench
+        identity.update({role: part.link.identity or part.link.where for role, part in accessories.fitted().items()})
+        return Devices(SimScreen(bench), SimCamera(bench), bench.clock, bench, identity, accessories)
     opened = []
     try:
         window = open_screen(cfg.modulator)
@@ -344,12 +346,17 @@ def finalize(folder: RunFolder, cfg, method: str, bench=None) -> dict:
     lut = build_lut(curve.gray, curve.smooth_rad if curve.smooth_rad is not None else curve.phase_rad,
                     curve.std_rad, bit_depth=cfg.modulator.bit_depth)
     (folder.path / "lut").mkdir(exist_ok=True)
-    write_lut_folder(folder.path / "lut", lut, metadata(lut, "phase.csv", now_iso(), cfg.laser.wavelength_nm))
+    meta = metadata(lut, "phase.csv", now_iso(), cfg.laser.wavelength_nm)
+    temperatures = [r["temperature_c"] for r in frames if r.get("temperature_c") is not None]
+    if temperatures:  # a probe was fitted: every table says at what temperature it was measured
+        meta["temperature_c"] = summary["temperature_c"] = float(np.mean(temperatures))
+        summary["temperature_range_c"] = [float(min(temperatures)), float(max(temperatures))]
+    write_lut_folder(folder.path / "lut", lut, meta)
     summary["lut"] = {"folder": "lut", "window_gray": list(lut.window), "distinct_grays": lut.distinct_grays,
                       "rms_linearity_rad": lut.rms_linearity_rad}
     write_json(folder.path / "analysis.json", summary)
     folder.update(status="complete", ended=now_iso(), range_rad=summary["range_rad"],
-                  first_gray_2pi=summary["first_gray_2pi"])
+                  first_gray_2pi=summary["first_gray_2pi"], temperature_c=summary.get("temperature_c"))
     write_report(folder.path)  # after the status: the page says how the run ended
     return summary
 
