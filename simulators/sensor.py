@@ -54,18 +54,20 @@ class Sensor:
             gens = [np.random.Generator(np.random.SFC64(s))
                     for s in np.random.SeedSequence([self.seed, key]).spawn(3)]
             z = self._standard_normal(mean.size, gens)
-            read2 = np.float32(n.read_noise_e**2)
-            electrons = np.sqrt(mean + read2)
+            electrons = mean + np.float32(n.read_noise_e**2)
+            np.sqrt(electrons, out=electrons)
             electrons *= z
             electrons += mean
             low = np.flatnonzero(mean < EXACT_BELOW_E)
             if low.size:
                 shot = gens[2].poisson(mean[low]).astype(np.float32)
                 electrons[low] = shot + np.float32(n.read_noise_e) * z[low]
-        np.minimum(electrons, np.float32(n.full_well_e), out=electrons)
+        # counts = round(min(e, full well) / K + offset), clipped to the ADC's range: the full well is a clip in
+        # counts too, so one clip does both; adding 0.5 and truncating rounds (half up)
         adu = electrons
-        adu *= np.float32(1.0 / self.e_per_adu(gain_db))
-        adu += np.float32(n.dark_offset_adu)
-        np.rint(adu, out=adu)
-        np.clip(adu, 0, self.full_scale, out=adu)
+        per_e = 1.0 / self.e_per_adu(gain_db)
+        adu *= np.float32(per_e)
+        adu += np.float32(n.dark_offset_adu + 0.5)
+        top = min(self.full_scale + 0.49, n.full_well_e * per_e + n.dark_offset_adu + 0.5)
+        np.clip(adu, 0, np.float32(top), out=adu)
         return adu.astype(np.uint16).reshape(shape)
