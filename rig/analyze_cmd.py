@@ -14,6 +14,7 @@ from analysis.carrier import NoFringesError
 from analysis.curve import CurveError, phase_curve
 from analysis.fringe import DEFAULT_METHOD, METHODS, estimate, lsq_model
 from analysis.imageio import DEFAULT_NAME_PATTERN, ImageFolderError, list_images, read_image
+from rig.cli import output_folder
 from rig.errors import UsageError
 from rig.results import curve_summary, plot_curve, write_json, write_phase_csv
 from rig.runfolder import versions
@@ -56,9 +57,7 @@ def parse_roi(text: str) -> Band:
 
 def cmd_analyze(args) -> int:
     """Find the fringe band, measure every frame's fringe phase and write the phase-vs-gray curve."""
-    out = Path(args.out)
-    if out.exists() and not out.is_dir():
-        raise UsageError(f"--out: {out} exists and is not a folder")
+    out = output_folder(args.out)
     if not 1 <= args.bit_depth <= 16:
         raise UsageError(f"--bit-depth: expected 1 to 16 bits, got {args.bit_depth}")
     try:

@@ -52,6 +52,16 @@ def load_bench_config(args) -> Config:
     return load_config(args.config)
 
 
+def output_folder(path: str, what: str = "--out") -> Path:
+    """A folder to write results into: it may exist (as a folder), and its parent must."""
+    out = Path(path)
+    if out.exists() and not out.is_dir():
+        raise UsageError(f"{what}: {out} exists and is not a folder")
+    if not out.parent.exists():
+        raise UsageError(f"{what}: folder {out.parent} does not exist")
+    return out
+
+
 def writable(path: str, what: str) -> Path:
     out = Path(path)
     if out.parent and not out.parent.exists():

@@ -22,6 +22,7 @@ import numpy as np
 from analysis.dispersion import fit_panel, predict, scale
 from analysis.lut import build_lut
 from rig.atomic import write_atomic
+from rig.cli import output_folder
 from rig.errors import UsageError
 from rig.figures import prediction_figure, wavelengths_figure
 from rig.lut_files import metadata, write_lut_folder
@@ -133,11 +134,7 @@ def cmd_predict(args) -> int:
         raise UsageError(f"--from: expected at least 2 calibrations of the panel, got {len(args.sources)}")
     if not (math.isfinite(args.wavelength_nm) and args.wavelength_nm > 0):
         raise UsageError(f"--wavelength-nm: expected a wavelength > 0 nm, got {args.wavelength_nm}")
-    out = Path(args.out)
-    if out.exists() and not out.is_dir():
-        raise UsageError(f"--out: {out} exists and is not a folder")
-    if not out.parent.exists():
-        raise UsageError(f"--out: folder {out.parent} does not exist")
+    out = output_folder(args.out)
     results = [read_result(spec, "--from") for spec in args.sources]
     model = _fit(results, "--from")
     pred = predict(model, args.wavelength_nm)

@@ -12,7 +12,7 @@ from rig.atomic import write_atomic
 from rig.errors import UsageError
 from rig.plans import hold_plan
 from rig.results import write_json
-from rig.run_cmd import Session, guarded, prepare_run, add_run_options, auto_exposure, locate, take_dark
+from rig.run_cmd import Session, add_run_options, get_ready, guarded, prepare_run
 
 
 def register(command) -> None:
@@ -37,9 +37,7 @@ def cmd_flicker(args) -> int:
 
     def body():
         with Session(args, cfg, folder, "fringecal flicker") as s:
-            take_dark(s)
-            auto_exposure(s, low, high)
-            locate(s, low, high)
+            get_ready(s, low, high)
             rate = getattr(s.devices.camera, "frame_rate_hz", None) or 1.0 / max(s.devices.camera.exposure_s, 1e-3)
             frames = max(int(round(args.seconds * rate)), 8)
             m = s.engine.run(hold_plan(cfg, args.gray, low, high, frames))

@@ -14,6 +14,7 @@ import numpy as np
 
 from analysis.config import load_config
 from analysis.lut import build_lut
+from rig.cli import output_folder
 from rig.errors import UsageError
 from rig.lut_files import FILE_NAMES, metadata, write_lut_folder
 
@@ -100,11 +101,7 @@ def cmd_lut(args) -> int:
     range_rad = None if args.range is None else parse_range(args.range)
     if args.levels is not None and args.levels < 2:
         raise UsageError(f"--levels: expected at least 2 table entries, got {args.levels}")
-    out = Path(args.out)
-    if out.exists() and not out.is_dir():
-        raise UsageError(f"--out: {out} exists and is not a folder")
-    if not out.parent.exists():
-        raise UsageError(f"--out: folder {out.parent} does not exist")
+    out = output_folder(args.out)
 
     curve = read_phase_csv(args.phase_csv)
     try:

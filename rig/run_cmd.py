@@ -276,6 +276,14 @@ def locate(s: Session, low: int, high: int) -> int:
     raise PlanError("locate: " + "; ".join(tried))
 
 
+def get_ready(s: Session, low: int, high: int) -> int:
+    """Dark level, exposure and fringe band at the grating pair ``low``/``high``, as every measurement starts;
+    returns the mirror gray whose fringes are pi from the reference gray's (for tuning)."""
+    take_dark(s)
+    auto_exposure(s, low, high)
+    return locate(s, low, high)
+
+
 def tune(s: Session, opposite: int):
     """Tune the grating pair; save tune.csv and tune.png; stop with hints if the contrast stays low."""
     result = s.engine.run(tune_plan(s.cfg, (s.cfg.sweep.reference_gray, opposite)))
@@ -420,9 +428,7 @@ def cmd_tune(args) -> int:
 
     def body():
         with Session(args, cfg, folder, "fringecal tune") as s:
-            take_dark(s)
-            auto_exposure(s, cfg.pattern.grating_low, cfg.pattern.grating_high)
-            opposite = locate(s, cfg.pattern.grating_low, cfg.pattern.grating_high)
+            opposite = get_ready(s, cfg.pattern.grating_low, cfg.pattern.grating_high)
             result = tune(s, opposite)
         folder.update(status="tuned", ended=now_iso())
         print(f"pair {result.low}/{result.high}: contrast {result.contrast:.3f}; the pi step is "
@@ -452,9 +458,7 @@ def cmd_sweep(args) -> int:
 
     def body():
         with Session(args, cfg, folder, "fringecal sweep") as s:
-            take_dark(s)
-            auto_exposure(s, low, high)
-            locate(s, low, high)
+            get_ready(s, low, high)
             warm_up(s, low, high, args.warmup_minutes)
             sweep(s, low, high)
             bench = s.devices.bench
@@ -509,9 +513,7 @@ def cmd_run(args) -> int:
 
     def body():
         with Session(args, cfg, folder, "fringecal run") as s:
-            take_dark(s)
-            auto_exposure(s, cfg.pattern.grating_low, cfg.pattern.grating_high)
-            opposite = locate(s, cfg.pattern.grating_low, cfg.pattern.grating_high)
+            opposite = get_ready(s, cfg.pattern.grating_low, cfg.pattern.grating_high)
             warm_up(s, cfg.pattern.grating_low, cfg.pattern.grating_high, args.warmup_minutes)
             result = tune(s, opposite)
             auto_exposure(s, result.low, result.high)  # the tuned first order is brighter than the starting pair's
