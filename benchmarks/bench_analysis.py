@@ -207,6 +207,7 @@ def run() -> None:
     cases = [("light x1", base),
              ("light x0.3", replace(base, **{"laser.power_mw": base.laser.power_mw * 0.3})),
              ("light x0.1", replace(base, **{"laser.power_mw": base.laser.power_mw * 0.1})),
+             ("clipping (light x1.5)", replace(base, **{"laser.power_mw": base.laser.power_mw * 1.5})),
              ("vibration 0.02 urad", replace(base, **{"simulator.timing.vibration_urad": 0.02}))]
     table = []
     nominal = None
