@@ -23,8 +23,7 @@ def coarse_peak(points: list[tuple[int, float]], low: int, gray_max: int, reach:
             a = grays[i - 1] if i else low + 1
             b = grays[i + 1] if i + 1 < len(grays) else gray_max
             return a, b
-    i = int(np.argmax(contrast))  # unreachable for finite data: the global maximum is a local one
-    return grays[max(i - 1, 0)], grays[min(i + 1, len(grays) - 1)]
+    raise ValueError("points: expected finite contrast values (the largest is always a local maximum)")
 
 
 def vertex_gray(points: dict[int, float], fallback: int) -> float:
