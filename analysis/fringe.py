@@ -18,11 +18,13 @@ import math
 from dataclasses import dataclass
 
 import numpy as np
-from scipy import optimize
+from scipy import ndimage, optimize
 
 from analysis.band import Band
 from analysis.carrier import Carrier
 
+CLIP_SMOOTH_PX = 15  # pixels averaged along the fringes to judge which crests reach full scale
+CLIP_MARGIN_ADU_FRACTION = 0.02  # crests within this fraction of full scale (about 3 noise sigmas) are left out too
 POLY_ORDER = 2  # total degree of the background and envelope polynomials of carrier-lsq
 TAPER_PERIODS = 3.0  # carrier-lsq window: raised-cosine ramps this many fringe periods wide at the knife edges
 NOISE_STRIDE = 8  # pixel_noise_var filters every 8th line: 1/8 of a band still gives the variance to ~1 %
@@ -150,9 +152,15 @@ def carrier_lsq(image: np.ndarray, model: LsqModel, dark_adu: float = 0.0, clip_
     moments = (model.v.T @ crop @ model.u).ravel()
     normal2 = model.normal2
     if clip_adu is not None and crop.max() >= clip_adu:
-        # Leave clipped pixels out: subtract their rows of A from A^T W I, A^T W A and A^T W^2 A (exact, cheap for
-        # a few). Rows from the windowed u, v carry the window once; dividing by it gives the plain rows.
-        ys, xs = np.nonzero(crop >= clip_adu)
+        # Leave out the pixels that clip and those noise could have clipped, judged on the frame averaged along the
+        # fringes (CLIP_SMOOTH_PX pixels): that follows each fringe's crest but not the noise, so the pixels left
+        # out change little from frame to frame (a set that jitters with the noise carries the beams' fine
+        # structure into the fit). Then subtract their rows of A from A^T W I, A^T W A and A^T W^2 A (exact, cheap
+        # for a few). Rows from the windowed u, v carry the window once; dividing by it gives the plain rows.
+        along_rows = 0 if abs(model.carrier.fx) >= abs(model.carrier.fy) else 1
+        smooth = ndimage.uniform_filter1d(crop, CLIP_SMOOTH_PX, axis=along_rows, mode="nearest")
+        ys, xs = np.nonzero((smooth >= clip_adu - CLIP_MARGIN_ADU_FRACTION * (clip_adu - dark_adu))
+                            | (crop >= clip_adu))
         weighted = np.einsum("pba,cb,ca->cp", model.combo, model.v[ys], model.u[xs], optimize=True)
         w = model.wy[ys] * model.wx[xs]
         rows = weighted / np.maximum(w, 1e-300)[:, None]
