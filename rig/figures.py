@@ -183,3 +183,38 @@ def logged_figure(series: list[tuple[str, np.ndarray, np.ndarray]]) -> bytes:
     axes[-1, 0].set_xlabel("time (s)")
     fig.tight_layout()
     return _png(fig)
+
+
+def flicker_figure(t_s, phase_rad, freqs_hz, spectrum_rad, dominant_hz: float) -> bytes:
+    """The held gray's fringe phase against time (mrad about its mean) and its amplitude spectrum."""
+    fig, axes = _plt().subplots(2, 1, figsize=(7, 5.5), dpi=DPI)
+    a, b = axes
+    unwrapped = np.unwrap(phase_rad)
+    a.plot((t_s - t_s[0]) * 1e3, (unwrapped - np.mean(unwrapped)) * 1e3, lw=0.7, color=INK)
+    a.set_xlabel("time (ms)")
+    a.set_ylabel("fringe phase (mrad)")
+    b.semilogy(freqs_hz[1:], spectrum_rad[1:] * 1e3 + 1e-6, lw=0.7, color=INK)
+    b.axvline(dominant_hz, color=ACCENT, lw=0.8, label=f"{dominant_hz:.1f} Hz")
+    b.set_xlabel("frequency (Hz)")
+    b.set_ylabel("amplitude (mrad)")
+    b.legend(fontsize=8)
+    for ax in axes:
+        ax.grid(alpha=0.25, lw=0.6)
+    fig.tight_layout()
+    return _png(fig)
+
+
+def map_figure(ranges_rad: np.ndarray, first_2pi: np.ndarray) -> bytes:
+    """Per-tile phase range (pi rad) and first gray reaching 2 pi (NaN where never), as rows x columns maps."""
+    fig, axes = _plt().subplots(1, 2, figsize=(9, 3.8), dpi=DPI)
+    for ax, data, title, unit in ((axes[0], ranges_rad / np.pi, "phase range", "π rad"),
+                                  (axes[1], first_2pi, "first gray reaching 2π", "gray")):
+        im = ax.imshow(data, cmap="viridis")
+        ax.set_title(title)
+        ax.set_xlabel("tile column")
+        ax.set_ylabel("tile row")
+        for (r, c), v in np.ndenumerate(data):
+            ax.text(c, r, "—" if np.isnan(v) else f"{v:.3g}", ha="center", va="center", color="w", fontsize=8)
+        fig.colorbar(im, ax=ax, label=unit, shrink=0.8)
+    fig.tight_layout()
+    return _png(fig)

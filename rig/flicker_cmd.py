@@ -2,7 +2,6 @@
 
 from __future__ import annotations
 
-import io
 import json
 
 import numpy as np
@@ -10,6 +9,7 @@ import numpy as np
 from analysis.flicker import flicker_figures
 from rig.atomic import write_atomic
 from rig.errors import UsageError
+from rig.figures import flicker_figure
 from rig.plans import hold_plan
 from rig.results import write_json
 from rig.run_cmd import Session, add_run_options, get_ready, guarded, prepare_run
@@ -56,7 +56,8 @@ def cmd_flicker(args) -> int:
             summary["simulator_ripple_hz"] = cfg.simulator.timing.flicker_hz
         folder.write_csv("flicker.csv", ["t_s", "phase_rad"], ((f"{a:.9f}", f"{b:.6f}") for a, b in zip(t, phase)))
         write_json(folder.path / "flicker.json", summary)
-        _plot(folder.path / "flicker.png", t, phase, fig)
+        write_atomic(folder.path / "flicker.png",
+                     flicker_figure(t, phase, fig.freqs_hz, fig.spectrum_rad, fig.dominant_hz))
         folder.update(status="complete", flicker=summary)
         if args.json:
             print(json.dumps(summary, indent=2))
@@ -81,26 +82,3 @@ def _warnings(fig, expect_hz) -> list[str]:
         out.append(f"the dominant frequency {fig.dominant_hz:.1f} Hz is near the Nyquist limit ({nyquist:.1f} Hz); "
                    "it may be an alias of a faster ripple")
     return out
-
-
-def _plot(path, t, phase, fig) -> None:
-    import matplotlib
-    matplotlib.use("Agg")
-    import matplotlib.pyplot as plt
-
-    f, (a, b) = plt.subplots(2, 1, figsize=(7, 5.5), dpi=110)
-    a.plot((t - t[0]) * 1e3, (np.unwrap(phase) - np.mean(np.unwrap(phase))) * 1e3, lw=0.7)
-    a.set_xlabel("time (ms)")
-    a.set_ylabel("fringe phase (mrad)")
-    a.grid(alpha=0.3)
-    b.semilogy(fig.freqs_hz[1:], fig.spectrum_rad[1:] * 1e3 + 1e-6, lw=0.7)
-    b.axvline(fig.dominant_hz, color="C3", lw=0.8, label=f"{fig.dominant_hz:.1f} Hz")
-    b.set_xlabel("frequency (Hz)")
-    b.set_ylabel("amplitude (mrad)")
-    b.grid(alpha=0.3)
-    b.legend()
-    f.tight_layout()
-    buf = io.BytesIO()
-    f.savefig(buf, format="png")
-    plt.close(f)
-    write_atomic(path, buf.getvalue())

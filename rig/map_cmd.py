@@ -3,7 +3,6 @@
 from __future__ import annotations
 
 import io
-from pathlib import Path
 
 import numpy as np
 
@@ -16,11 +15,12 @@ from analysis.panelmap import fit_surface, parse_grid, tiles
 from analysis.patterns import grating_half, layout_of
 from rig.atomic import write_atomic
 from rig.errors import UsageError
+from rig.figures import map_figure
 from rig.journal import read_journal
 from rig.lut_files import metadata, write_lut_folder
 from rig.plans import UseRegion, sweep_plan
 from rig.results import write_json, write_phase_csv
-from rig.run_cmd import Session, guarded, prepare_run, add_run_options, auto_exposure, locate, take_dark, tune
+from rig.run_cmd import Session, add_run_options, auto_exposure, guarded, locate, prepare_run, take_dark, tune
 from rig.runfolder import RunFolder, now_iso
 
 
@@ -156,31 +156,9 @@ def _finish(folder: RunFolder, cfg, grid, bench) -> dict:
     write_json(folder.path / "tables.json", {"shape": "rows x cols x levels", "grid": [rows, cols],
                                              "tiles": summary["tiles"], "file": "tables.npy"})
     write_json(folder.path / "map.json", summary)
-    _plot(folder.path / "map.png", summary, rows, cols, grid)
-    folder.update(status="complete", ended=now_iso())
-    return summary
-
-
-def _plot(path: Path, summary: dict, rows: int, cols: int, grid) -> None:
-    import matplotlib
-    matplotlib.use("Agg")
-    import matplotlib.pyplot as plt
-
     ranges = np.array([summary["range_rad"][t.name] for t in grid]).reshape(rows, cols)
     firsts = np.array([np.nan if summary["first_gray_2pi"][t.name] is None else summary["first_gray_2pi"][t.name]
                        for t in grid], float).reshape(rows, cols)
-    fig, axes = plt.subplots(1, 2, figsize=(9, 3.8), dpi=110)
-    for ax, data, title, unit in ((axes[0], ranges / np.pi, "phase range", "π rad"),
-                                  (axes[1], firsts, "first gray reaching 2π", "gray")):
-        im = ax.imshow(data, cmap="viridis")
-        ax.set_title(title)
-        ax.set_xlabel("tile column")
-        ax.set_ylabel("tile row")
-        for (r, c), v in np.ndenumerate(data):
-            ax.text(c, r, "—" if np.isnan(v) else f"{v:.3g}", ha="center", va="center", color="w", fontsize=8)
-        fig.colorbar(im, ax=ax, label=unit, shrink=0.8)
-    fig.tight_layout()
-    buf = io.BytesIO()
-    fig.savefig(buf, format="png")
-    plt.close(fig)
-    write_atomic(path, buf.getvalue())
+    write_atomic(folder.path / "map.png", map_figure(ranges, firsts))
+    folder.update(status="complete", ended=now_iso())
+    return summary
