@@ -19,6 +19,14 @@ class JournalContents:
         """Keys of every completed unit of work."""
         return frozenset(r["checkpoint"] for r in self.records if "checkpoint" in r)
 
+    def last_checkpoint_s(self) -> float:
+        """Clock time (s) of the last finished unit, 0 before any: where a resumed simulated run's clock starts."""
+        return max((r["t_s"] for r in self.records if "checkpoint" in r), default=0.0)
+
+    def frames_journaled(self) -> int:
+        """The highest frame number journaled so far (a resumed run numbers its frames after it)."""
+        return max((r["frame"] for r in self.records if "frame" in r), default=0)
+
     def frames(self) -> list[dict]:
         """Frame records of completed units, from the session that completed each: a unit cut short is measured
         again, whole, by a later session, and its earlier frames are left out."""

@@ -16,7 +16,7 @@ from analysis.patterns import grating_half, layout_of
 from rig.atomic import write_atomic
 from rig.errors import UsageError
 from rig.figures import map_figure
-from rig.journal import read_journal
+from rig.journal import JournalContents, read_journal
 from rig.lut_files import metadata, write_lut_folder
 from rig.plans import UseRegion, sweep_plan
 from rig.results import write_json, write_phase_csv
@@ -71,11 +71,10 @@ def _measure(args, cfg, folder: RunFolder) -> int:
     info = folder.info["map"]
     grid = tiles(cfg.modulator.width_px, cfg.modulator.height_px, info["rows"], info["cols"])
     background = info["background_gray"]
-    contents = read_journal(folder.path / "journal.jsonl") if (folder.path / "journal.jsonl").exists() else None
-    done = contents.checkpoints() if contents else frozenset()
-    times = [r["t_s"] for r in contents.records if "checkpoint" in r] if contents else []
-    frames_before = max((r["frame"] for r in contents.records if "frame" in r), default=0) if contents else 0
-    with Session(args, cfg, folder, "fringecal map", max(times, default=0.0), frames_before) as s:
+    journal = folder.path / "journal.jsonl"
+    contents = read_journal(journal) if journal.exists() else JournalContents((), None)
+    done = contents.checkpoints()
+    with Session(args, cfg, folder, "fringecal map", contents.last_checkpoint_s(), contents.frames_journaled()) as s:
         if "pair" not in folder.info:
             take_dark(s)
             centre = grid[len(grid) // 2]

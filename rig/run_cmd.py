@@ -480,9 +480,7 @@ def _resume(args) -> int:
     args.sim = args.sim or folder.info["devices"]["camera_backend"] == "sim"
     contents = read_journal(folder.path / "journal.jsonl")
     done = contents.checkpoints()
-    times = [r["t_s"] for r in contents.records if "checkpoint" in r]
-    start_s = max(times) if times else 0.0
-    frames_before = max((r["frame"] for r in contents.records if "frame" in r), default=0)
+    start_s, frames_before = contents.last_checkpoint_s(), contents.frames_journaled()
     pair, b, c = folder.info["pair"], folder.info["band"], folder.info["carrier"]
     band = Band(b["x0"], b["x1"], b["y0"], b["y1"])
     folder.update(status="running")
