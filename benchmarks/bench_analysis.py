@@ -42,7 +42,7 @@ CURVE_SIGN = -1  # on this bench the fringe phase falls as the gray rises
 def sweep(cfg):
     """Frames of a simulated sweep in acquisition order: (gray, time_s, image, noise-free image, tilt phase rad).
 
-    References come as rig/plans.sweep_units schedules them: first, after every REFERENCE_EVERY levels and last.
+    References come as rig/run/steps.sweep_units schedules them: first, after every REFERENCE_EVERY levels and last.
     The noise-free image is rendered with the frame's own panel tilt (drift and vibration), so image minus
     noise-free image is camera noise alone; the fringe phase that tilt causes is returned on its own (see
     tilt_phase), so that the noise part can put it back without the bench's systematic error riding on it.

@@ -9,7 +9,7 @@ from pathlib import Path
 from analysis.config import config_from_dict
 from configs import HERE
 from rig.cli import main
-from rig.plans import run_seconds
+from rig.run.steps import run_seconds
 
 REALTIME = """
 [sweep]

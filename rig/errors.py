@@ -7,3 +7,7 @@ class FringecalError(Exception):
 
 class UsageError(FringecalError):
     """An argument, file or setting given by the user cannot be used; the message names it and what was expected."""
+
+
+class DeviceFault(FringecalError):
+    """A device failed for good (gone, or failing every retry); the message names the device and what failed."""

@@ -7,8 +7,8 @@ import pytest
 import serial
 
 from analysis.config import Config, replace
-from rig.accessories import DriftWatch, PowerMeter, Rotator, Shutter, open_accessories
-from rig.engine import DeviceFault
+from rig.devices.accessories import DriftWatch, PowerMeter, Rotator, Shutter, open_accessories
+from rig.errors import DeviceFault
 from rig.errors import UsageError
 from simulators.instruments import MeterModel, PtyInstrument, RotatorModel, ShutterModel
 

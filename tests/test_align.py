@@ -6,9 +6,9 @@ from conftest import small_config_file, split_for
 
 from analysis.alignment import AlignmentFigures, alignment_figures, hint
 from analysis.config import replace
-from rig.align_cmd import AlignState, align_loop, apply_key, render, text_image
 from rig.cli import main
-from rig.run_cmd import open_devices
+from rig.commands.align import AlignState, align_loop, apply_key, render, text_image
+from rig.run.session import open_devices
 from simulators.bench import Bench
 from simulators.devices import SimCamera
 
@@ -102,7 +102,7 @@ def test_waveplate_fit_finds_the_contrast_maximum():
 
 def test_scan_waveplate_on_the_simulator_turns_the_polarisation_onto_the_director(small_cfg, capsys):
     """The simulated bench starts 35 deg off the director: the scan must turn the plate by -17.5 deg (mod 90)."""
-    from rig.align_cmd import scan_waveplate
+    from rig.commands.align import scan_waveplate
     from simulators.devices import SimRotator
     cfg = replace(small_cfg, **{"simulator.response.polarization_deg": 35.0, "pattern.grating_high": 80})
     devices = open_devices(cfg, sim=True)

@@ -8,7 +8,7 @@ import pytest
 from conftest import band_phasor, split_for
 
 from analysis.config import replace
-from rig.protocols import Camera, Clock, Screen
+from rig.devices.protocols import Camera, Clock, Screen
 from simulators.bench import Bench
 from simulators.devices import SimCamera, SimScreen
 

@@ -11,10 +11,10 @@ import pytest
 from analysis.config import replace
 from analysis.frame import Frame
 from analysis.patterns import Rect
-from rig.cameras import OpenCVCamera, ReplayCamera, UnsupportedSetting, open_camera
 from rig.cli import main
+from rig.devices.cameras import OpenCVCamera, ReplayCamera, UnsupportedSetting, open_camera
+from rig.devices.protocols import Camera
 from rig.errors import UsageError
-from rig.protocols import Camera
 from simulators.bench import Bench
 from simulators.devices import SimCamera
 

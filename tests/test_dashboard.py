@@ -5,7 +5,7 @@ import json
 
 from rich.console import Console
 
-from rig.dashboard import EventFile, LiveDashboard, PlainProgress, RunState, sparkline, text_plot
+from rig.output.dashboard import EventFile, LiveDashboard, PlainProgress, RunState, sparkline, text_plot
 
 
 def feed(state, extra=()):

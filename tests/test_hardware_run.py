@@ -9,12 +9,12 @@ import pytest
 from analysis.config import load_config
 from analysis.patterns import layout_of, split_screen
 from rig.cli import main
-from rig.engine import Engine
-from rig.journal import read_journal
-from rig.measure import FrameAnalyzer
-from rig.plans import Grab, Settle, ShowSplit
-from rig.run_cmd import open_devices
-from rig.screen import Tee
+from rig.devices.screen import Tee
+from rig.output.runs import read_journal
+from rig.run.engine import Engine
+from rig.run.measure import FrameAnalyzer
+from rig.run.session import open_devices
+from rig.run.steps import Grab, Settle, ShowSplit
 from simulators.bench import Bench
 from simulators.devices import SimCamera, SimScreen
 from simulators.instruments import MeterModel, PtyInstrument, ShutterModel
@@ -143,14 +143,14 @@ def test_engine_discards_the_configured_frames_after_each_pattern_change(small_c
     camera = SimCamera(bench)
     engine = Engine(small_cfg, SimScreen(bench), camera, bench.clock, FrameAnalyzer(4095, 40.0), discard_frames=3)
 
-    def plan():
+    def steps():
         for gray in (0, 100):
             yield ShowSplit(gray, 0, 80)
             yield Settle(0.0)
             yield Grab(2, "level", gray, wait=True)
 
     try:
-        engine.run(plan())
+        engine.run(steps())
     finally:
         engine.close()
     assert engine.faults["discarded"] == 6 and camera.delivered == 10 and engine.frames_grabbed == 4

@@ -18,7 +18,7 @@ from analysis.lut import build_lut, isotonic, monotone_cubic
 from analysis.patterns import blazed_phase, phase_to_gray
 from configs import DEFAULT_SIM
 from rig.atomic import write_atomic
-from rig.lut_files import FILE_NAMES, metadata, read_lut_folder, write_lut_folder
+from rig.output.lut_files import FILE_NAMES, metadata, read_lut_folder, write_lut_folder
 from simulators.response import PanelResponse
 
 TWO_PI = 2 * math.pi

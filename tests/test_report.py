@@ -10,7 +10,7 @@ import pytest
 from conftest import small_config_file
 
 from rig.cli import main
-from rig.report import FIGURE_DIR, SAFETY_NOTE, write_report
+from rig.output.report import FIGURE_DIR, SAFETY_NOTE, write_report
 
 # a small bench and a sweep of every 8th gray: a complete run folder in a few seconds
 VOID = {"meta", "img", "br", "hr", "link", "input"}

@@ -15,7 +15,7 @@ import pytest
 from conftest import small_config_file
 
 from rig.cli import main
-from rig.journal import read_journal
+from rig.output.runs import read_journal
 
 def read_csv(path):
     with open(path) as fh:

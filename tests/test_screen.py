@@ -6,7 +6,7 @@ import pytest
 
 from analysis.patterns import SplitLayout, blazed_phase, phase_to_gray, split_screen
 from rig.cli import main
-from rig.screen import DisplayError, DisplayInfo, PygletScreen, choose_display, pack_rgb
+from rig.devices.screen import DisplayError, DisplayInfo, PygletScreen, choose_display, pack_rgb
 from xdisplay import PANEL_H, PANEL_W, panel_display
 
 DESK = DisplayInfo(0, "DESK", 0, 0, 1280, 1024, True)

@@ -13,8 +13,8 @@ from analysis.lut import build_lut
 from conftest import small_config_file
 
 from rig.cli import main
-from rig.lut_files import metadata, write_lut_folder
-from rig.verify_cmd import Table, blazed_grays
+from rig.commands.verify import Table, blazed_grays
+from rig.output.lut_files import metadata, write_lut_folder
 from simulators.bench import Bench
 
 # Swanson, MIT Lincoln Laboratory TR-854 (1989), N-level staircase, first order (values as listed in

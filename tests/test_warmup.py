@@ -9,21 +9,21 @@ from conftest import small_config_file
 
 from analysis.config import config_from_dict
 from rig.cli import main
-from rig.journal import read_journal
-from rig.plans import FrameResult, Grab, Measurement, Wait, warmup_plan
+from rig.output.runs import read_journal
+from rig.run.steps import FrameResult, Grab, Measurement, Wait, warmup_steps
 from simulators.bench import Bench
 
 LEVELS = {"sweep.levels": [0, 64, 128, 192, 255]}
 
 
-def test_plan_stops_once_the_slope_is_below_the_limit():
+def test_warmup_steps_stop_once_the_slope_is_below_the_limit():
     cfg = config_from_dict({"sweep": {"warmup_slope_rad_per_min": 0.01}})
     clock = {"t": 0.0}
-    plan = warmup_plan(cfg, 0, 80, max_minutes=30, interval_s=10, window_s=60)
+    steps = warmup_steps(cfg, 0, 80, max_minutes=30, interval_s=10, window_s=60)
     reply = None
     while True:
         try:
-            step = plan.send(reply)
+            step = steps.send(reply)
         except StopIteration as stop:
             result = stop.value
             break

@@ -8,7 +8,7 @@ import time
 
 import numpy as np
 
-from rig.cameras import CameraBase
+from rig.devices.cameras import CameraBase
 
 
 class ToyCamera(CameraBase):

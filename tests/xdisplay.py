@@ -14,7 +14,7 @@ PANEL_W, PANEL_H = 1920, 1080
 def panel_display():
     """The non-primary 1920x1080 display; skip (or fail, in CI) when there is none."""
     from rig.errors import UsageError
-    from rig.screen import list_displays
+    from rig.devices.screen import list_displays
 
     reason = None
     if not os.environ.get("DISPLAY"):

@@ -15,13 +15,15 @@ from analysis.panelmap import fit_surface, parse_grid, tiles
 from analysis.patterns import grating_half, layout_of
 from rig.atomic import write_atomic
 from rig.errors import UsageError
-from rig.figures import map_figure
-from rig.journal import JournalContents, read_journal
-from rig.lut_files import metadata, write_lut_folder
-from rig.plans import UseRegion, sweep_plan
-from rig.results import write_json, write_phase_csv
-from rig.run_cmd import Session, add_run_options, auto_exposure, guarded, locate, prepare_run, take_dark, tune
-from rig.runfolder import RunFolder, now_iso
+from rig.options import add_run_options
+from rig.output.figures import map_figure
+from rig.output.lut_files import metadata, write_lut_folder
+from rig.output.results import now_iso, write_json, write_phase_csv
+from rig.output.runs import JournalContents, read_journal
+from rig.run.folder import RunFolder
+from rig.run.session import Session, guarded, prepare_run
+from rig.run.stages import auto_exposure, locate, take_dark, tune
+from rig.run.steps import UseRegion, sweep_steps
 
 
 def register(command) -> None:
@@ -34,7 +36,7 @@ def register(command) -> None:
 
 
 def _region(tile, background: int):
-    """A one-step plan: draw patterns inside ``tile`` from now on."""
+    """One step: draw patterns inside ``tile`` from now on."""
     r = tile.rect
     yield UseRegion((r.x0, r.x1, r.y0, r.y1), background)
 
@@ -98,7 +100,7 @@ def _measure(args, cfg, folder: RunFolder) -> int:
                 locate(s, low, high)
                 info["tiles"][tile.name] = {"band": folder.info["band"], "carrier": folder.info["carrier"]}
                 folder.update(map=info)
-            s.engine.run(sweep_plan(cfg, low, high, done, prefix=f"{tile.name}/", stage=f"tile {tile.name}"))
+            s.engine.run(sweep_steps(cfg, low, high, done, prefix=f"{tile.name}/", stage=f"tile {tile.name}"))
         bench = s.devices.bench
     summary = _finish(folder, cfg, grid, bench)
     first = summary["range_rad"]

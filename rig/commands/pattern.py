@@ -10,9 +10,9 @@ import numpy as np
 
 from analysis.patterns import (blazed_phase, layout_of, lens_phase, phase_to_gray, split_screen, vortex_phase)
 from rig.atomic import write_atomic
-from rig.cli import load_bench_config
 from rig.errors import UsageError
-from rig.lut_files import read_lut_folder
+from rig.options import load_bench_config
+from rig.output.lut_files import read_lut_folder
 
 KINDS = ("blazed", "lens", "vortex", "split")
 

@@ -1,4 +1,4 @@
-"""The run loop: executes plans on a screen and a camera, analyses frames off the acquisition path, journals them.
+"""The run loop: executes step generators on a screen and a camera, analyses frames off the acquisition path, journals them.
 
 Contract:
 - Frames exposed before the settle deadline of the last pattern change are discarded, never analysed.
@@ -21,8 +21,8 @@ from typing import Callable
 import numpy as np
 
 from analysis.patterns import Rect, layout_of, split_in_rect, split_screen
-from rig.errors import FringecalError
-from rig.plans import Checkpoint, Grab, Measurement, SetExposure, Settle, ShowSplit, Stage, UseRegion, Wait
+from rig.errors import DeviceFault, FringecalError
+from rig.run.steps import Checkpoint, Grab, Measurement, SetExposure, Settle, ShowSplit, Stage, UseRegion, Wait
 
 MAX_RETRIES = 8
 BACKOFF_S = (0.02, 0.05, 0.1, 0.2, 0.5, 1.0)
@@ -30,16 +30,12 @@ MAX_BACKLOG = 64  # frames waiting in either worker before the acquisition loop 
 MAX_STALE = 200  # frames dropped for one grab before the camera is declared out of step with the panel
 
 
-class DeviceFault(FringecalError):
-    """A device failed for good (gone, or failing every retry); the message names the device and what failed."""
-
-
 class Interrupted(FringecalError):
     """The run was stopped on request and can be resumed."""
 
 
 class Engine:
-    """Executes plan steps on ``screen`` and ``camera``; ``analyzer`` turns frames into FrameResults.
+    """Executes measurement steps on ``screen`` and ``camera``; ``analyzer`` turns frames into FrameResults.
 
     ``on_frame(record, result, image)`` is called in the worker for every analysed frame and returns the journal
     record (the run folder uses it to save crops); ``publish(event)`` receives progress events from both threads.
@@ -80,13 +76,13 @@ class Engine:
         """Stop before the next pattern change (safe to call from a signal handler)."""
         self._stop = True
 
-    def run(self, plan):
-        """Execute ``plan`` to its end and return its return value."""
+    def run(self, steps):
+        """Execute the generator ``steps`` to its end and return its return value."""
         reply = None
         try:
             while True:
                 try:
-                    step = plan.send(reply)
+                    step = steps.send(reply)
                 except StopIteration as done:
                     return done.value
                 reply = self._execute(step)
@@ -139,7 +135,7 @@ class Engine:
             self._units_done, self._stage_total = step.done, step.total
             self.publish({"event": "stage", "name": step.name, "total": step.total, "done": step.done})
             return None
-        raise TypeError(f"plan step: expected one of the step types of rig.plans, got {step!r}")
+        raise TypeError(f"step: expected one of the step types of rig.run.steps, got {step!r}")
 
     def _show(self, step: ShowSplit) -> None:
         key = (step.mirror_gray, step.low, step.high, self._region)

@@ -8,8 +8,8 @@ import numpy as np
 
 from analysis.config import Config, load_config
 from analysis.patterns import layout_of, split_screen
+from rig.devices.screen import DisplayInfo, PygletScreen, choose_display, list_displays
 from rig.errors import UsageError
-from rig.screen import DisplayInfo, PygletScreen, choose_display, list_displays
 
 
 def register(command) -> None:

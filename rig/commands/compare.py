@@ -22,13 +22,12 @@ import numpy as np
 from analysis.dispersion import fit_panel, predict, scale
 from analysis.lut import build_lut
 from rig.atomic import write_atomic
-from rig.cli import output_folder
 from rig.errors import UsageError
-from rig.figures import prediction_figure, wavelengths_figure
-from rig.lut_files import metadata, write_lut_folder
-from rig.results import write_json
-from rig.runfolder import now_iso
-from rig.runs import bit_depth_of, panel_differences, read_result
+from rig.options import output_folder
+from rig.output.figures import prediction_figure, wavelengths_figure
+from rig.output.lut_files import metadata, write_lut_folder
+from rig.output.results import now_iso, write_json
+from rig.output.runs import bit_depth_of, panel_differences, read_result
 
 MODEL = ("phase(gray, lambda) = f(gray) * D(lambda) / lambda, D = 1 + b/lambda^2 + c/lambda^4 (extended-Cauchy "
          "birefringence over its constant term, lambda in um)")

@@ -19,9 +19,9 @@ import numpy as np
 from analysis.frame import Frame
 from analysis.imageio import ImageFolderError, list_images, read_image
 from analysis.patterns import Rect
-from rig.clock import MonotonicClock
+from rig.devices.clock import MonotonicClock
+from rig.devices.protocols import Camera
 from rig.errors import UsageError
-from rig.protocols import Camera
 
 EXPOSURE_RANGE_S = (1e-6, 10.0)
 
@@ -252,7 +252,7 @@ class OpenCVCamera(CameraBase):
 def load_backend(settings):
     """Instantiate the lab's own camera class named ``module:Class`` in ``camera.backend`` as Class(settings).
 
-    ``settings`` is the config's ``[camera]`` section; the object must satisfy rig.protocols.Camera and stamp its
+    ``settings`` is the config's ``[camera]`` section; the object must satisfy rig.devices.protocols.Camera and stamp its
     frames on ``time.monotonic`` (the rig's clock).
     """
     module_name, _, class_name = settings.backend.partition(":")
@@ -268,7 +268,7 @@ def load_backend(settings):
         missing = [n for n in ("width_px", "height_px", "bit_depth", "exposure_s", "gain_db", "grab", "close")
                    if not hasattr(camera, n)]
         raise UsageError(f"camera.backend: {settings.backend} is not a camera (missing {', '.join(missing)}; see "
-                         "rig.protocols.Camera)")
+                         "rig.devices.protocols.Camera)")
     return camera
 
 

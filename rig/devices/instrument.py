@@ -10,7 +10,7 @@ from __future__ import annotations
 
 import math
 
-from rig.engine import DeviceFault
+from rig.errors import DeviceFault
 
 try:
     import termios

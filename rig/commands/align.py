@@ -19,9 +19,9 @@ from rich.text import Text
 
 from analysis.alignment import AlignmentFigures, alignment_figures, best_waveplate_deg, hint
 from analysis.patterns import layout_of, split_screen
-from rig.cli import load_bench_config
 from rig.errors import UsageError
-from rig.run_cmd import open_devices
+from rig.options import load_bench_config
+from rig.run.session import open_devices
 from rig.safety import add_acknowledgement_flag, ensure_laser_safety
 
 SHADES = " .:-=+*#%@"

@@ -7,7 +7,7 @@ import numpy as np
 from analysis.band import Band, find_band
 from analysis.carrier import Carrier, NoFringesError
 from analysis.fringe import DEFAULT_METHOD, estimate, exposure, lsq_model
-from rig.plans import FrameResult
+from rig.run.steps import FrameResult
 
 PROFILE_POINTS = 64  # samples of the fringe profile sent to the dashboard
 

@@ -7,8 +7,8 @@ import json
 import math
 
 from analysis.geometry import BAND_FILL, MIN_FRINGES, RECOMMENDED_SAMPLES, plan, setup_from_config
-from rig.cli import load_bench_config
 from rig.errors import UsageError
+from rig.options import load_bench_config
 
 TRADE_OFF = ("A shorter grating period diffracts at a larger angle, so the beams overlap sooner and the bench is "
              "shorter, but the fringes are finer on the sensor; a longer period needs more distance, and a longer "

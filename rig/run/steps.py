@@ -1,7 +1,7 @@
-"""Measurement plans: generators of small steps that the engine executes. Plans hold no I/O.
+"""Step generators: each ``*_steps`` function yields the small steps that the engine executes. They hold no I/O.
 
-A plan yields steps; for a ``Grab`` with ``wait=True`` the engine sends back the ``Measurement``, so a plan can
-decide what to measure next (exposure, tuning). ``list(plan)`` on a plan that never waits runs with no hardware,
+A generator yields steps; for a ``Grab`` with ``wait=True`` the engine sends back the ``Measurement``, so it can
+decide what to measure next (exposure, tuning). ``list(steps)`` on a generator that never waits runs with no hardware,
 which is how tests and dry runs see what a sweep will do. ``Checkpoint`` marks a finished unit of work: a resumed
 run skips every unit whose checkpoint is already in the journal; a unit is measured whole or not at all.
 """
@@ -58,7 +58,7 @@ class SetExposure:
 
 @dataclass(frozen=True)
 class Grab:
-    """Grab ``frames`` good frames and analyse them; ``wait`` returns the Measurement to the plan."""
+    """Grab ``frames`` good frames and analyse them; ``wait`` returns the Measurement to the generator."""
 
     frames: int
     purpose: str  # exposure | locate | tune | level | reference
@@ -127,12 +127,12 @@ class Measurement:
         return max(r.saturated_px for r in self.results)
 
 
-class PlanError(RuntimeError):
-    """A plan cannot go on (too little contrast, a camera that saturates at its shortest exposure)."""
+class StepError(RuntimeError):
+    """A measurement cannot go on (too little contrast, a camera that saturates at its shortest exposure)."""
 
 
 # --- exposure ------------------------------------------------------------------------------------------------
-def exposure_plan(cfg, exposure_s: float, low_gray: int, high_gray: int, target: float = 0.70, low: float = 0.60,
+def exposure_steps(cfg, exposure_s: float, low_gray: int, high_gray: int, target: float = 0.70, low: float = 0.60,
                   high: float = 0.80, tries: int = 10):
     """Bring the brightest pixels of the split pattern to ``low``..``high`` of full scale; return the exposure (s).
 
@@ -150,7 +150,7 @@ def exposure_plan(cfg, exposure_s: float, low_gray: int, high_gray: int, target:
             return exposure_s
         exposure_s *= 0.5 if m.saturated_px or reached >= 0.999 else target / max(reached, 1e-3)
         exposure_s = min(exposure_s, cfg.camera.exposure_s * 1e3)
-    raise PlanError(f"exposure: no exposure brought the peak into {low:.0%}..{high:.0%} of full scale in {tries} tries"
+    raise StepError(f"exposure: no exposure brought the peak into {low:.0%}..{high:.0%} of full scale in {tries} tries"
                     f" (last {reached:.0%} at {exposure_s:.3g} s); check the light level and attenuation")
 
 
@@ -158,7 +158,7 @@ def exposure_plan(cfg, exposure_s: float, low_gray: int, high_gray: int, target:
 LOCATE_GRAYS = 8
 
 
-def locate_plan(cfg, low: int, high: int):
+def locate_steps(cfg, low: int, high: int):
     """Show LOCATE_GRAYS mirror grays spread over the panel's range with the grating pair; return their Measurements
     (images kept): the band is where fringes move with the mirror gray, and their phases give a first coarse curve."""
     gmax = cfg.gray_max
@@ -194,7 +194,7 @@ class TuneResult:
     measurements: int  # grating pairs measured
 
 
-def tune_plan(cfg, mirror_grays: tuple[int, int], low: int | None = None, coarse_points: int = 16,
+def tune_steps(cfg, mirror_grays: tuple[int, int], low: int | None = None, coarse_points: int = 16,
               frames: int = 1, refine: int = 12):
     """Find the high gray (low fixed) whose binary grating has the strongest first order: a pi phase step.
 
@@ -281,7 +281,7 @@ def sweep_units(cfg, seed: int = 0, prefix: str = "") -> list[tuple[str, str, in
     return units
 
 
-def sweep_plan(cfg, low: int, high: int, done: frozenset[str] = frozenset(), seed: int = 0, prefix: str = "",
+def sweep_steps(cfg, low: int, high: int, done: frozenset[str] = frozenset(), seed: int = 0, prefix: str = "",
                stage: str = "sweep"):
     """Measure every unit of the sweep not in ``done``; frames are analysed and journaled as they come."""
     units = sweep_units(cfg, seed, prefix)
@@ -305,7 +305,7 @@ class WarmupResult:
     series: tuple[tuple[float, float], ...]  # (time s, unwrapped fringe phase rad)
 
 
-def warmup_plan(cfg, low: int, high: int, max_minutes: float, interval_s: float = 10.0, window_s: float = 120.0):
+def warmup_steps(cfg, low: int, high: int, max_minutes: float, interval_s: float = 10.0, window_s: float = 120.0):
     """Hold the reference pattern and follow its fringe phase until, over the last ``window_s``, it moves less than
     ``sweep.warmup_slope_rad_per_min``; give up (stable=False) after ``max_minutes``."""
     gray = cfg.sweep.reference_gray
@@ -330,7 +330,7 @@ def warmup_plan(cfg, low: int, high: int, max_minutes: float, interval_s: float 
         yield Wait(interval_s)
 
 
-def hold_plan(cfg, gray: int, low: int, high: int, frames: int):
+def hold_steps(cfg, gray: int, low: int, high: int, frames: int):
     """Hold one split pattern and grab ``frames`` frames back to back; return their Measurement."""
     yield Stage("flicker", 1)
     yield ShowSplit(gray, low, high)

@@ -9,10 +9,12 @@ import numpy as np
 from analysis.flicker import flicker_figures
 from rig.atomic import write_atomic
 from rig.errors import UsageError
-from rig.figures import flicker_figure
-from rig.plans import hold_plan
-from rig.results import write_json
-from rig.run_cmd import Session, add_run_options, get_ready, guarded, prepare_run
+from rig.options import add_run_options
+from rig.output.figures import flicker_figure
+from rig.output.results import write_json
+from rig.run.session import Session, guarded, prepare_run
+from rig.run.stages import get_ready
+from rig.run.steps import hold_steps
 
 
 def register(command) -> None:
@@ -40,7 +42,7 @@ def cmd_flicker(args) -> int:
             get_ready(s, low, high)
             rate = getattr(s.devices.camera, "frame_rate_hz", None) or 1.0 / max(s.devices.camera.exposure_s, 1e-3)
             frames = max(int(round(args.seconds * rate)), 8)
-            m = s.engine.run(hold_plan(cfg, args.gray, low, high, frames))
+            m = s.engine.run(hold_steps(cfg, args.gray, low, high, frames))
             exposure = s.devices.camera.exposure_s
             bench = s.devices.bench
         t = np.array([r.t_s for r in m.results])

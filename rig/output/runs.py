@@ -13,7 +13,36 @@ from pathlib import Path
 
 from analysis.dispersion import Calibration
 from rig.errors import UsageError
-from rig.lut_cmd import MeasuredCurve, read_phase_csv
+from rig.output.results import MeasuredCurve, read_phase_csv
+
+
+CROP_MARGIN_PERIODS = 3  # saved crops extend past the band so a later analysis can find the band again
+
+
+@dataclass(frozen=True)
+class JournalContents:
+    """Records of a journal; ``truncated`` is the unreadable last line a power cut or kill left, if any."""
+
+    records: tuple[dict, ...]
+    truncated: str | None
+
+    def checkpoints(self) -> frozenset[str]:
+        """Keys of every completed unit of work."""
+        return frozenset(r["checkpoint"] for r in self.records if "checkpoint" in r)
+
+    def last_checkpoint_s(self) -> float:
+        """Clock time (s) of the last finished unit, 0 before any: where a resumed simulated run's clock starts."""
+        return max((r["t_s"] for r in self.records if "checkpoint" in r), default=0.0)
+
+    def frames_journaled(self) -> int:
+        """The highest frame number journaled so far (a resumed run numbers its frames after it)."""
+        return max((r["frame"] for r in self.records if "frame" in r), default=0)
+
+    def frames(self) -> list[dict]:
+        """Frame records of completed units, from the session that completed each: a unit cut short is measured
+        again, whole, by a later session, and its earlier frames are left out."""
+        final = {r["checkpoint"]: r["session"] for r in self.records if "checkpoint" in r}
+        return [r for r in self.records if "frame" in r and final.get(r.get("unit")) == r["session"]]
 
 
 @dataclass(frozen=True, eq=False)
@@ -97,3 +126,20 @@ def panel_differences(results: list[Result]) -> list[str]:
             if a != b:
                 notes.append(f"{r.label} has {section}.{key} = {b}, {first.label} has {a}: is it the same panel?")
     return notes
+
+
+def read_journal(path: str | Path) -> JournalContents:
+    """Read every complete line; a last line cut short is returned apart, earlier bad lines are an error."""
+    lines = Path(path).read_text(encoding="utf-8").split("\n")
+    records, truncated = [], None
+    for number, line in enumerate(lines, 1):
+        if not line.strip():
+            continue
+        try:
+            records.append(json.loads(line))
+        except json.JSONDecodeError:
+            is_last = all(not rest.strip() for rest in lines[number:])
+            if not is_last:
+                raise ValueError(f"{path}: line {number} is not a JSON record; the journal is damaged") from None
+            truncated = line
+    return JournalContents(tuple(records), truncated)

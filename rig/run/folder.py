@@ -2,7 +2,7 @@
 
     run.json        config snapshot, versions, host, times, devices, exposure, tuned pair, band, status
     config.toml     the same config as a file, to run the same bench again with --config
-    journal.jsonl   one line per analysed frame and per finished unit (rig.journal)
+    journal.jsonl   one line per analysed frame and per finished unit (rig.run.journal)
     frames/         16-bit PNG crops of the fringe band (gNNN-fNNNNN.png), unless --no-frames
     manifest.csv    gray,file,time_s of the saved crops in acquisition order (so `fringecal analyze` reads them)
     phase.csv, analysis.json, phase.png, tune.csv, tune.png, truth.csv (simulator runs)
@@ -25,23 +25,10 @@ import cv2
 import numpy as np
 
 from analysis.config import as_dict, to_toml
-from rig import __version__
 from rig.atomic import write_atomic
 from rig.errors import UsageError
-
-CROP_MARGIN_PERIODS = 3  # saved crops extend past the band so a later analysis can find the band again
-
-
-def now_iso() -> str:
-    return dt.datetime.now(dt.timezone.utc).astimezone().isoformat(timespec="seconds")
-
-
-def versions() -> dict:
-    """Versions of the software that produced a result."""
-    import scipy
-    return {"fringecal": __version__, "python": platform.python_version(), "numpy": np.__version__,
-            "scipy": scipy.__version__, "opencv": cv2.__version__}
-
+from rig.output.results import now_iso, versions
+from rig.output.runs import CROP_MARGIN_PERIODS
 
 class RunFolder:
     """One run's folder; ``info`` mirrors run.json and is rewritten atomically by ``update``."""

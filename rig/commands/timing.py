@@ -16,9 +16,9 @@ from dataclasses import dataclass
 import numpy as np
 
 from analysis.patterns import layout_of, split_screen
-from rig.cli import load_bench_config
 from rig.errors import UsageError
-from rig.run_cmd import open_devices
+from rig.options import load_bench_config
+from rig.run.session import open_devices
 from rig.safety import add_acknowledgement_flag, ensure_laser_safety
 
 CHANGED = 0.02  # departure from the old image, either way, that counts as "changed" (well above frame noise)

@@ -14,10 +14,9 @@ from analysis.carrier import NoFringesError
 from analysis.curve import CurveError, phase_curve
 from analysis.fringe import DEFAULT_METHOD, METHODS, estimate, lsq_model
 from analysis.imageio import DEFAULT_NAME_PATTERN, ImageFolderError, list_images, read_image
-from rig.cli import output_folder
 from rig.errors import UsageError
-from rig.results import curve_summary, plot_curve, write_json, write_phase_csv
-from rig.runfolder import versions
+from rig.options import output_folder
+from rig.output.results import curve_summary, plot_curve, versions, write_json, write_phase_csv
 
 BAND_SAMPLES = 8        # frames at distinct grays used to find the band
 PROGRESS_FROM = 20      # show a progress bar for folders of at least this many images

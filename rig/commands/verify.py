@@ -2,7 +2,8 @@
 
 (a) Linearity: target phases evenly spaced over the table's range are put on the mirror half of the split screen
     through the table (the grating half is a 0/pi grating through the same table), and the fringe phase of each is
-    measured with the run's own engine, plans and frame analysis (rig.engine.Engine, rig.measure.FrameAnalyzer).
+    measured with the run's own engine, step generators and frame analysis (rig.run.engine.Engine,
+    rig.run.measure.FrameAnalyzer).
     The same targets through the identity table (gray proportional to phase) show what the table corrects.
 (b) Efficiency: blazed gratings of a few periods over the whole panel, through the table and through the identity,
     their first-order efficiency measured on the camera (analysis/efficiency.py says what is measured and why) and
@@ -28,15 +29,14 @@ from analysis.curve import circular_mean
 from analysis.efficiency import (disc_power, linearity, order_offset_um, outside_discs, staircase_efficiency,
                                  swanson_efficiency)
 from analysis.patterns import phase_to_gray
-from rig.cli import load_bench_config
-from rig.engine import Engine
 from rig.errors import UsageError
-from rig.lut_files import read_lut_folder
-from rig.measure import FrameAnalyzer
-from rig.plans import Grab, Settle, ShowSplit, Stage, exposure_plan, locate_plan
-from rig.results import write_json
-from rig.runfolder import now_iso
-from rig.runs import read_json_file
+from rig.options import load_bench_config
+from rig.output.lut_files import read_lut_folder
+from rig.output.results import now_iso, write_json
+from rig.output.runs import read_json_file
+from rig.run.engine import Engine
+from rig.run.measure import FrameAnalyzer
+from rig.run.steps import Grab, Settle, ShowSplit, Stage, exposure_steps, locate_steps
 from rig.safety import add_acknowledgement_flag, ensure_laser_safety
 
 DEFAULT_PERIODS = (4, 6, 8)
@@ -61,7 +61,7 @@ class Table:
 
 
 # --- (a) linearity -------------------------------------------------------------------------------------------
-def targets_plan(cfg, grays, low: int, high: int, frames: int):
+def targets_steps(cfg, grays, low: int, high: int, frames: int):
     """Show each mirror gray with the grating pair and return its Measurement (in order)."""
     yield Stage("verify", len(grays))
     out = []
@@ -81,14 +81,14 @@ def measure_linearity(cfg, devices, tables: dict[str, Table], n_targets: int, fr
     low, high = (int(g) for g in main.grays_for(np.array([0.0, math.pi])))
     try:
         analyzer.dark_adu = float(np.percentile(cam.grab(timeout_s=engine.timeout_s).image, 0.1))
-        engine.run(exposure_plan(cfg, cam.exposure_s, low, high))
-        located = engine.run(locate_plan(cfg, low, high))
+        engine.run(exposure_steps(cfg, cam.exposure_s, low, high))
+        located = engine.run(locate_steps(cfg, low, high))
         analyzer.locate([m.images[0] for m in located])
         target = main.range_rad * np.arange(n_targets) / n_targets
         results, sign = {}, None
         for name, table in tables.items():
             grays = table.grays_for(target)
-            measured = engine.run(targets_plan(cfg, grays, low, high, frames))
+            measured = engine.run(targets_steps(cfg, grays, low, high, frames))
             means = [circular_mean([r.phase_rad for r in m.results], [r.phase_std_rad for r in m.results])
                      for m in measured]
             phase = np.unwrap([p for p, _ in means])
@@ -225,7 +225,7 @@ def parse_periods(text: str) -> tuple[int, ...]:
 
 def cmd_verify(args) -> int:
     """Verify a lookup table on the bench: the linearity of the phase it makes and the efficiency of its gratings."""
-    from rig.run_cmd import open_devices
+    from rig.run.session import open_devices
 
     stored = read_lut_folder(args.lut)
     cfg = load_bench_config(args)

@@ -1,12 +1,12 @@
-"""Plans are plain generators: what they measure can be read with no hardware."""
+"""Step generators are plain generators: what they measure can be read with no hardware."""
 
 import numpy as np
 import pytest
 
 from analysis.config import config_from_dict
 from analysis.tuning import coarse_peak, vertex_gray
-from rig.plans import (Checkpoint, FrameResult, Grab, Measurement, SetExposure, Settle, ShowSplit, exposure_plan,
-                       opposite_gray, sweep_order, sweep_plan, sweep_units, tune_plan)
+from rig.run.steps import (Checkpoint, FrameResult, Grab, Measurement, SetExposure, Settle, ShowSplit, exposure_steps,
+                       opposite_gray, sweep_order, sweep_steps, sweep_units, tune_steps)
 
 
 def cfg_with(**sweep):
@@ -15,7 +15,7 @@ def cfg_with(**sweep):
 
 def test_sweep_measures_every_level_once_with_references_every_k():
     cfg = cfg_with(reference_every=16, frames_per_level=3)
-    steps = list(sweep_plan(cfg, 0, 80))
+    steps = list(sweep_steps(cfg, 0, 80))
     grabs = [s for s in steps if isinstance(s, Grab)]
     levels = [g.gray for g in grabs if g.purpose == "level"]
     assert levels == list(range(256))
@@ -36,7 +36,7 @@ def test_resumed_sweep_skips_exactly_the_finished_units():
     cfg = cfg_with(levels=list(range(0, 256, 8)))
     units = sweep_units(cfg)
     done = frozenset(key for key, _, _ in units[:10])
-    again = [s for s in sweep_plan(cfg, 0, 80, done) if isinstance(s, Grab)]
+    again = [s for s in sweep_steps(cfg, 0, 80, done) if isinstance(s, Grab)]
     assert [(g.unit, g.gray) for g in again] == [(k, g) for k, _, g in units[10:]]
 
 
@@ -54,13 +54,13 @@ def fake_measurement(peak=0.5, saturated=0, amplitude=0.0, contrast=0.5):
     return Measurement((FrameResult(0, "x", 0.0, 0, peak, saturated, 0.0, 0.01, contrast, amplitude),))
 
 
-def drive(plan, respond):
-    """Run a plan with ``respond(step)`` standing in for the engine (it sees every step and answers waiting grabs);
-    return (steps, the plan's return value)."""
+def drive(generator, respond):
+    """Run a step generator with ``respond(step)`` standing in for the engine (it sees every step and answers waiting
+    grabs); return (steps, the generator's return value)."""
     steps, reply = [], None
     while True:
         try:
-            step = plan.send(reply)
+            step = generator.send(reply)
         except StopIteration as stop:
             return steps, stop.value
         steps.append(step)
@@ -77,14 +77,14 @@ def test_exposure_converges_on_a_linear_camera_and_halves_when_saturated():
         peak = 400.0 * camera["exposure_s"]
         return fake_measurement(min(peak, 1.0), saturated=100 if peak >= 1.0 else 0)
 
-    steps, exposure = drive(exposure_plan(cfg_with(), 0.02, 0, 80), respond)  # starts saturated
+    steps, exposure = drive(exposure_steps(cfg_with(), 0.02, 0, 80), respond)  # starts saturated
     assert 0.60 <= 400.0 * exposure <= 0.80
     exposures = [s.exposure_s for s in steps if isinstance(s, SetExposure)]
     assert exposures[1] == pytest.approx(exposures[0] / 2)
 
 
 def test_tuning_finds_the_pi_step_of_a_model_grating():
-    """First-order field of a binary grating is proportional to |sin(dphi/2)| (Goodman): the plan must land on the
+    """First-order field of a binary grating is proportional to |sin(dphi/2)| (Goodman): tune_steps must land on the
     gray whose step is pi, also on a panel with more than 2 pi (the first maximum, not the 3 pi one)."""
     cfg = cfg_with()
     phase = 4.2 * np.pi * (np.arange(256) / 255) ** 1.3  # a panel of 4.2 pi
@@ -94,7 +94,7 @@ def test_tuning_finds_the_pi_step_of_a_model_grating():
         if isinstance(step, Grab):
             return fake_measurement(amplitude=1000 * abs(np.sin(phase[step.gray] / 2)) + 3.0)
 
-    steps, result = drive(tune_plan(cfg, (0, 60)), respond)
+    steps, result = drive(tune_steps(cfg, (0, 60)), respond)
     assert abs(result.high - pi_gray) <= 1
     assert result.measurements <= 48
     assert phase[result.high] == pytest.approx(np.pi, abs=0.1)

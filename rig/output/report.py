@@ -26,11 +26,10 @@ from analysis.lut import monotone_cubic
 from rig import __version__
 from rig.atomic import write_atomic
 from rig.errors import UsageError
-from rig.figures import (curve_figure, drift_figure, frame_figure, logged_figure, residual_figure, table_figure,
+from rig.output.figures import (curve_figure, drift_figure, frame_figure, logged_figure, residual_figure, table_figure,
                          tuning_figure)
-from rig.journal import read_journal
-from rig.runfolder import CROP_MARGIN_PERIODS, now_iso
-from rig.runs import read_json_file, read_result
+from rig.output.results import now_iso
+from rig.output.runs import CROP_MARGIN_PERIODS, read_journal, read_json_file, read_result
 
 REPORT_HTML = "report.html"
 FIGURE_DIR = "report"
@@ -304,16 +303,3 @@ def write_report(run_dir: str | Path) -> Path:
     page = render_page(f"Phase calibration at {nm}" if info.get("wavelength_nm") else "Phase calibration", subtitle,
                        _summary(info, analysis, table, numbers, curve), _setup(info), warnings, figures, now_iso())
     return write_atomic(folder / REPORT_HTML, page.encode("utf-8"))
-
-
-def cmd_report(args) -> int:
-    """Write the calibration's figures and a self-contained HTML page (report.html) into the run folder."""
-    path = write_report(args.run_dir)
-    print(f"wrote {path} and the figures in {Path(args.run_dir) / FIGURE_DIR}/")
-    return 0
-
-
-def register(command) -> None:
-    """Add ``fringecal report`` to the parser."""
-    p = command("report", cmd_report, "figures and a self-contained HTML page of a calibration")
-    p.add_argument("run_dir", metavar="RUN_DIR", help="run folder (or any folder holding a phase.csv)")

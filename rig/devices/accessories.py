@@ -11,9 +11,8 @@ import time
 from dataclasses import dataclass, fields
 from typing import Callable
 
-from rig.engine import DeviceFault
-from rig.errors import UsageError
-from rig.instrument import LineInstrument
+from rig.devices.instrument import LineInstrument
+from rig.errors import DeviceFault, UsageError
 
 
 class Shutter:

@@ -2,75 +2,17 @@
 
 from __future__ import annotations
 
-import csv
 import datetime
 import math
 import re
 import sys
-from dataclasses import dataclass
-from pathlib import Path
-
-import numpy as np
 
 from analysis.config import load_config
 from analysis.lut import build_lut
-from rig.cli import output_folder
 from rig.errors import UsageError
-from rig.lut_files import FILE_NAMES, metadata, write_lut_folder
-
-PHASE_CSV_HEADER = ("gray", "phase_rad", "phase_std_rad", "contrast", "n_frames")
-
-
-@dataclass(frozen=True, eq=False)
-class MeasuredCurve:
-    """The columns of a phase.csv: gray levels, phase (rad), its std (rad), fringe contrast, frames averaged."""
-
-    gray: np.ndarray
-    phase_rad: np.ndarray
-    phase_std_rad: np.ndarray
-    contrast: np.ndarray
-    n_frames: np.ndarray
-
-
-def read_phase_csv(path: str | Path) -> MeasuredCurve:
-    """Read a phase.csv; raise UsageError naming the line and column of the first bad value."""
-    path = Path(path)
-    try:
-        text = path.read_text(encoding="utf-8-sig")
-    except FileNotFoundError:
-        raise UsageError(f"PHASE_CSV: no such file {path}") from None
-    except (IsADirectoryError, UnicodeDecodeError) as err:
-        raise UsageError(f"PHASE_CSV: cannot read {path} as text ({err.__class__.__name__})") from None
-    rows = [row for row in csv.reader(text.splitlines()) if row]
-    header = tuple(cell.strip() for cell in rows[0]) if rows else ()
-    if header != PHASE_CSV_HEADER:
-        raise UsageError(f"PHASE_CSV: {path}: expected header {','.join(PHASE_CSV_HEADER)}, "
-                         f"got {','.join(header) or 'an empty file'}")
-    if len(rows) < 3:
-        raise UsageError(f"PHASE_CSV: {path}: expected at least 2 rows of measured gray levels, got {len(rows) - 1}")
-    columns = [[] for _ in PHASE_CSV_HEADER]
-    for line, row in enumerate(rows[1:], start=2):
-        if len(row) != len(PHASE_CSV_HEADER):
-            raise UsageError(f"PHASE_CSV: {path} line {line}: expected {len(PHASE_CSV_HEADER)} values, got {len(row)}")
-        for name, cell, column in zip(PHASE_CSV_HEADER, row, columns):
-            column.append(_number(cell, name, integer=name in ("gray", "n_frames"), where=f"{path} line {line}"))
-    curve = MeasuredCurve(*(np.asarray(c, dtype=np.int64 if n in ("gray", "n_frames") else float)
-                            for n, c in zip(PHASE_CSV_HEADER, columns)))
-    if np.any(curve.phase_std_rad < 0):
-        line = int(np.flatnonzero(curve.phase_std_rad < 0)[0]) + 2
-        raise UsageError(f"PHASE_CSV: {path} line {line}: column phase_std_rad expected a std >= 0")
-    return curve
-
-
-def _number(cell: str, name: str, integer: bool, where: str) -> float:
-    try:
-        value = float(cell)
-    except ValueError:
-        value = math.nan
-    if not math.isfinite(value) or integer and value != round(value):
-        kind = "an integer" if integer else "a finite number"
-        raise UsageError(f"PHASE_CSV: {where}: column {name} expected {kind}, got {cell.strip()!r}")
-    return int(value) if integer else value
+from rig.options import output_folder
+from rig.output.lut_files import FILE_NAMES, metadata, write_lut_folder
+from rig.output.results import read_phase_csv
 
 
 def parse_range(text: str) -> float:

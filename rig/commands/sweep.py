@@ -1,0 +1,89 @@
+"""``fringecal sweep``: measure every gray level at a fixed grating pair, with drift references; resumable."""
+
+from __future__ import annotations
+
+from analysis.band import Band
+from analysis.carrier import Carrier
+from analysis.config import config_from_dict
+from rig.errors import UsageError
+from rig.options import add_run_options
+from rig.output.runs import read_journal
+from rig.run.folder import RunFolder
+from rig.run.session import Session, guarded, prepare_run
+from rig.run.stages import closing_lines, finish, get_ready, sweep, warm_up
+
+
+def register(command) -> None:
+    p = command("sweep", cmd_sweep, "measure the phase of every gray level with drift references (resumable)")
+    add_run_options(p)
+    p.add_argument("--warmup-minutes", type=float, default=0.0, metavar="M",
+                   help="before measuring, hold a pattern until the fringe phase is stable, at most M minutes")
+    p.add_argument("--resume", metavar="RUN_DIR", help="continue an interrupted sweep in RUN_DIR")
+    p.add_argument("--pair", metavar="LOW:HIGH", help="grating gray pair (default: the config's)")
+
+
+def _parse_pair(text: str, gmax: int) -> tuple[int, int]:
+    try:
+        low, high = (int(v) for v in text.split(":"))
+    except ValueError:
+        raise UsageError(f"--pair: expected LOW:HIGH gray levels such as 0:80, got {text!r}") from None
+    if not (0 <= low <= gmax and 0 <= high <= gmax and low != high):
+        raise UsageError(f"--pair: expected two different gray levels in [0, {gmax}], got {text!r}")
+    return low, high
+
+
+def cmd_sweep(args) -> int:
+    """Step the mirror half through every gray level at a fixed grating pair, with drift references."""
+    if args.resume:
+        return _resume(args)
+    cfg, folder = prepare_run(args, "sweep")
+    low, high = (_parse_pair(args.pair, cfg.gray_max) if args.pair
+                 else (cfg.pattern.grating_low, cfg.pattern.grating_high))
+
+    def body():
+        with Session(args, cfg, folder, "fringecal sweep") as s:
+            get_ready(s, low, high)
+            warm_up(s, low, high, args.warmup_minutes)
+            sweep(s, low, high)
+            bench = s.devices.bench
+        return _finish(folder, cfg, args.method, bench)
+
+    return guarded(folder, body)
+
+
+def _resume(args) -> int:
+    if args.config or args.out or args.pair or args.warmup_minutes:
+        raise UsageError("--resume: the run's own config, folder and pair are used; drop --config, --out, --pair and "
+                         "--warmup-minutes")
+    folder = RunFolder.open(args.resume)
+    cfg = config_from_dict(folder.info["config"], source=folder.info["config_source"])
+    if "band" not in folder.info or "pair" not in folder.info or "exposure_s" not in folder.info:
+        raise UsageError(f"--resume: {folder.path} stopped before its sweep began; start a new run")
+    if folder.info.get("status") == "complete":
+        raise UsageError(f"--resume: {folder.path} is already complete")
+    args.sim = args.sim or folder.info["devices"]["camera_backend"] == "sim"
+    contents = read_journal(folder.path / "journal.jsonl")
+    done = contents.checkpoints()
+    start_s, frames_before = contents.last_checkpoint_s(), contents.frames_journaled()
+    pair, b, c = folder.info["pair"], folder.info["band"], folder.info["carrier"]
+    band = Band(b["x0"], b["x1"], b["y0"], b["y1"])
+    folder.update(status="running")
+    print(f"sweep: resuming {folder.path}: {len(done)} units already measured", flush=True)
+
+    def body():
+        with Session(args, cfg, folder, "fringecal sweep (resumed)", start_s, frames_before) as s:
+            s.devices.camera.exposure_s = folder.info["exposure_s"]
+            s.analyzer.use(band, Carrier(c["fx"], c["fy"], c["sharpness"]))
+            folder.set_crop(band, c["period_px"], (s.devices.camera.height_px, s.devices.camera.width_px))
+            sweep(s, pair["low"], pair["high"], done)
+            bench = s.devices.bench
+        return _finish(folder, cfg, args.method, bench)
+
+    return guarded(folder, body)
+
+
+def _finish(folder, cfg, method, bench) -> int:
+    summary = finish(folder, cfg, method, bench)
+    for line in closing_lines(folder, summary):
+        print(line)
+    return 0
