@@ -23,7 +23,7 @@ from dataclasses import dataclass, field
 import numpy as np
 from scipy import interpolate, optimize, stats
 
-from analysis.cyclic import LeakFit, fit_leak
+from analysis.cyclic import MIN_ARC_RAD, LeakFit, fit_leak
 
 MAX_DRIFT_DEGREE = 3     # drift is modelled as a polynomial in time of at most this degree
 DRIFT_TERM_CHI2 = 9.0    # a higher drift degree is kept only if it lowers chi-square this much (a 3-sigma term)
@@ -534,16 +534,20 @@ def _frame_scatter(lv: _Levels) -> tuple[np.ndarray, np.ndarray, float, int, np.
     pooled excess per frame (rad), its degrees of freedom and the levels on their own spread.
     """
     multi = lv.n >= 2
-    dof = int(np.sum(lv.n[multi] - 1))
-    excess = 0.0
-    if dof:
-        excess = max(float(np.sum((lv.n[multi] - 1) * (lv.own_var[multi] - lv.stated_var[multi]))) / dof, 0.0)
-    frame_var = lv.stated_var + excess
     own = np.zeros(lv.n.size, dtype=bool)
-    if dof:
+    excess, dof = 0.0, 0
+    for _ in range(5):  # levels on their own spread leave the pool, which may free others
+        pool = multi & ~own
+        dof = int(np.sum(lv.n[pool] - 1))
+        if not dof:
+            break
+        excess = max(float(np.sum((lv.n[pool] - 1) * (lv.own_var[pool] - lv.stated_var[pool]))) / dof, 0.0)
         limit = stats.f.isf(OWN_SCATTER_P, np.maximum(lv.n - 1, 1), dof)
-        own = multi & (np.nan_to_num(lv.own_var) > frame_var * limit)
-    frame_var = np.where(own, lv.own_var, frame_var)
+        flagged = multi & (np.nan_to_num(lv.own_var) > (lv.stated_var + excess) * limit)
+        if np.array_equal(flagged, own):
+            break
+        own = flagged
+    frame_var = np.where(own, lv.own_var, lv.stated_var + excess)
     pixel = np.sqrt(lv.stated_var / lv.n)
     scatter = np.sqrt(np.maximum(frame_var - lv.stated_var, 0.0) / lv.n)
     return pixel, scatter, math.sqrt(excess), dof, own
@@ -600,14 +604,14 @@ def phase_curve(gray, phase_rad, std_rad, time_s=None, contrast=None, reference_
         if leak is not None:
             phase = np.angle(np.exp(1j * (phase + leak.correction_rad)))
             cyclic = leak.correction_std_rad
-            if not leak.applied:
+            if not leak.applied and leak.arc_rad < MIN_ARC_RAD:
                 warnings.append(f"cyclic error of a leak |L|/a = {leak.ratio:.4f} +- {leak.ratio_std:.4f} "
                                 f"{leak.reason}; the error left in is carried in the uncertainty")
 
     # Visits are counted in time order so that frames handed over shuffled still group correctly.
     order = np.argsort(time_s, kind="stable")
     visit = _visits(is_ref, order)
-    drift = None
+    drift, rough = None, None
     if len(np.unique(visit[is_ref])) >= 2:
         drift = fit_drift(time_s[is_ref], phase[is_ref], std[is_ref], visit[is_ref])
         if scale_gray is not None:
@@ -627,6 +631,11 @@ def phase_curve(gray, phase_rad, std_rad, time_s=None, contrast=None, reference_
         warnings.append(f"reference gray {reference_gray} was measured in fewer than two visits: no drift model")
     if drift is not None:
         phase = np.angle(np.exp(1j * (phase - drift(time_s))))
+    if drift is not None and drift.scale_coefficients:
+        # The scale acts on the unwrapped phase: each frame takes the branch of its level in the first pass.
+        branch = rough[np.searchsorted(first.gray, gray)]
+        unwrapped_frames = branch + np.angle(np.exp(1j * (phase - branch)))
+        phase = np.angle(np.exp(1j * unwrapped_frames / (1 + drift.scale(time_s))))
 
     lv = _level_stats(gray, phase, std, time_s, contrast, cyclic)
     pixel, scatter, excess, dof, own = _frame_scatter(lv)
@@ -643,7 +652,6 @@ def phase_curve(gray, phase_rad, std_rad, time_s=None, contrast=None, reference_
     t_level = lv.time_s[level_ok]
     drift_std = np.zeros(levels.size)
     if drift is not None:
-        unwrapped = unwrapped / (1 + drift.scale(t_level))
         drift_std = drift.std_rad(t_level, unwrapped)
 
     data_slope = np.polyfit(levels, unwrapped, 1)[0] if levels.size >= 2 else 1.0
@@ -687,7 +695,8 @@ def _level_outliers(levels: np.ndarray, phase: np.ndarray, std: np.ndarray, half
     """True for levels within OUTLIER_SIGMAS robust deviations of a line through their neighbours.
 
     The worst level is dropped and the rest re-examined, one at a time, so an outlier never condemns the
-    neighbours whose lines it bent (at most a quarter of the levels can go).
+    neighbours whose lines it bent (at most a quarter of the levels can go). Two or more neighbouring levels off
+    together are kept: that is a feature of the curve, such as a dip, which find_dips reports, not a glitch.
     """
     ok = np.ones(levels.size, dtype=bool)
     for _ in range(levels.size // 4):
@@ -706,7 +715,9 @@ def _level_outliers(levels: np.ndarray, phase: np.ndarray, std: np.ndarray, half
         if excess[worst] <= 1:
             break
         ok[idx[worst]] = False
-    return ok
+    bad = ~ok
+    in_run = bad & (np.r_[False, bad[:-1]] | np.r_[bad[1:], False])
+    return ok | in_run
 
 
 def summarize(gray: np.ndarray, phase_rad: np.ndarray, std_rad: np.ndarray, smooth_rad: np.ndarray | None,
