@@ -283,15 +283,20 @@ def test_table_makes_the_wanted_ramp_whichever_way_the_curve_runs(direction, rea
 def test_a_dip_is_recorded_and_the_stated_error_follows_the_measured_curve():
     """A curve with a 0.3 rad dip (falling from gray 120 to 135), measured at 2 mrad: the table records one dip,
     warns of it, and its worst stated error is the measured curve's deviation (near the true worst error of the
-    table on that curve, 77 mrad, within 20 %), not the quantisation on the smoothed curve (45 mrad)."""
+    table on that curve within 20 %, over 5 noise draws), not only the quantisation on the smoothed curve (which
+    understates it by a third or more in some draws: 45 against 77 mrad)."""
     gray = np.arange(256)
     # The S-curve rises about 0.57 rad over grays 120..135; a triangle 0.87 rad deep there makes it fall 0.3 rad.
     phase = s_curve(gray, 2.3 * math.pi) - 0.87 * np.clip(1 - np.abs(gray - 135) / 15, 0, 1)
-    noisy = phase + np.random.default_rng(4).normal(0, 0.002, 256)
-    lut = build_lut(gray, noisy, np.full(256, 0.002), bit_depth=8)
-    assert len(lut.dips) == 1 and 115 <= lut.dips[0].from_gray <= 125 and 130 <= lut.dips[0].to_gray <= 140
-    assert any("falls against" in w for w in lut.warnings)
-    true_error = phase[lut.gray] - phase[lut.gray[0]] - lut.target_phase_rad
-    true_worst = np.abs(true_error - true_error.mean()).max()
-    assert lut.worst_quantisation_rad < 0.75 * true_worst
-    assert lut.worst_error_rad == pytest.approx(true_worst, rel=0.2)
+    understated = 0
+    for seed in range(5):
+        noisy = phase + np.random.default_rng(seed).normal(0, 0.002, 256)
+        lut = build_lut(gray, noisy, np.full(256, 0.002), bit_depth=8)
+        assert len(lut.dips) == 1 and 115 <= lut.dips[0].from_gray <= 125 and 130 <= lut.dips[0].to_gray <= 140
+        assert lut.dips[0].depth_rad == pytest.approx(0.3, abs=0.02)
+        assert any("falls against" in w for w in lut.warnings)
+        true_error = phase[lut.gray] - phase[lut.gray[0]] - lut.target_phase_rad
+        true_worst = np.abs(true_error - true_error.mean()).max()
+        assert lut.worst_error_rad == pytest.approx(true_worst, rel=0.2)
+        understated += lut.worst_quantisation_rad < 0.75 * true_worst
+    assert understated >= 2
