@@ -224,6 +224,18 @@ class PhaseCurve:
     cyclic: LeakFit | None = None
     warnings: tuple[str, ...] = field(default=())
 
+    def analysis_fields(self, time_base: str = "time_s") -> dict:
+        """JSON-ready figures of the corrections and the uncertainty, for analysis.json (phases in rad)."""
+        return {
+            "direction": self.direction, "direction_basis": self.direction_basis, "sign": self.sign,
+            "phase_convention": PHASE_CONVENTION,
+            "drift": None if self.drift is None else self.drift.summary(time_base),
+            "cyclic": None if self.cyclic is None else self.cyclic.summary(),
+            "budget": None if self.budget is None else self.budget.summary(),
+            "budget_per_level": [] if self.budget is None else self.budget.rows(),
+            "dips": [d.summary() for d in self.summary.dips], "warnings": list(self.warnings),
+        }
+
 
 def circular_mean(phase_rad: np.ndarray, std_rad: np.ndarray) -> tuple[float, float]:
     """Mean direction (rad) of phases and its standard error (rad).
@@ -553,9 +565,26 @@ def _frame_scatter(lv: _Levels) -> tuple[np.ndarray, np.ndarray, float, int, np.
     return pixel, scatter, math.sqrt(excess), dof, own
 
 
+def estimator_floor_rad(gray, difference_rad) -> float:
+    """Systematic floor (rad) from two estimators' per-frame phase differences: their level means' RMS spread.
+
+    A constant difference is no error (the curve is relative), and the level means' own noise (their frames'
+    scatter over the frame count) is removed. The disagreement is taken whole as the possible error of either,
+    since it is the error of one when the other is right.
+    """
+    g, d = np.asarray(gray), np.asarray(difference_rad, float)
+    levels = np.unique(g)
+    means = np.array([np.angle(np.mean(np.exp(1j * d[g == v]))) for v in levels])
+    noise = [np.var(d[g == v], ddof=1) / np.sum(g == v) for v in levels if np.sum(g == v) >= 2]
+    spread = np.angle(np.exp(1j * (means - np.angle(np.mean(np.exp(1j * means))))))
+    excess = float(np.mean(spread**2)) - (float(np.mean(noise)) if noise else 0.0)
+    return math.sqrt(max(excess, 0.0))
+
+
 def phase_curve(gray, phase_rad, std_rad, time_s=None, contrast=None, reference_gray: int = 0,
                 sign: int | None = None, smooth: bool = False, *, direction: str = "unknown",
-                direction_basis: str | None = None, amplitude=None, scale_gray: int | None = None) -> PhaseCurve:
+                direction_basis: str | None = None, amplitude=None, scale_gray: int | None = None,
+                check_phase_rad=None) -> PhaseCurve:
     """Build the phase curve from per-frame results in acquisition order.
 
     ``time_s`` defaults to the acquisition index. ``direction`` ("rising", "falling") is how the panel's phase runs
@@ -569,7 +598,9 @@ def phase_curve(gray, phase_rad, std_rad, time_s=None, contrast=None, reference_
     frame after frames of other grays starts a drift visit; two or more visits give the piston drift, and two or
     more visits of ``scale_gray`` too the scale drift. Frames more than OUTLIER_SIGMAS off their level's mean
     (levels of three or more frames) and levels that far off a line through their neighbours are rejected and
-    listed. ``std_rad`` of the result is the combined uncertainty of ``budget``.
+    listed. ``check_phase_rad``, the same frames' phases by a second, independent estimator, sizes a systematic
+    floor from the two's disagreement (see estimator_floor_rad). ``std_rad`` of the result is the combined
+    uncertainty of ``budget``.
     """
     gray = np.asarray(gray, dtype=int)
     phase = np.asarray(phase_rad, dtype=float)
@@ -591,6 +622,12 @@ def phase_curve(gray, phase_rad, std_rad, time_s=None, contrast=None, reference_
     if scale_gray is not None and (scale_gray == reference_gray or not (gray == scale_gray).any()):
         raise CurveError(f"scale gray {scale_gray}: expected a gray other than the reference gray, with frames")
     warnings: list[str] = []
+    disagreement = None
+    if check_phase_rad is not None:
+        check = np.asarray(check_phase_rad, dtype=float)
+        if check.shape != (n,) or not np.all(np.isfinite(check)):
+            raise CurveError("check_phase_rad: expected one finite phase per frame from the second estimator")
+        disagreement = np.angle(np.exp(1j * (check - phase)))
 
     leak, cyclic = None, np.zeros(n)
     if amplitude is not None:
@@ -671,6 +708,9 @@ def phase_curve(gray, phase_rad, std_rad, time_s=None, contrast=None, reference_
 
 
     floor = leak.residual_rad if leak is not None else 0.0
+    if disagreement is not None:
+        keep = lv.keep & np.isin(gray, levels)
+        floor = math.hypot(floor, estimator_floor_rad(gray[keep], disagreement[keep]))
     budget = UncertaintyBudget(levels, pixel[level_ok], scatter[level_ok], drift_std, lv.cyclic_rad[level_ok],
                                np.full(levels.size, floor), excess, dof,
                                tuple(int(g) for g in lv.gray[own & level_ok]))

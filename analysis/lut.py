@@ -78,6 +78,13 @@ class LookupTable:
         """The range in multiples of pi for a file name, e.g. "2pi" or "1.10pi"."""
         return "2pi" if not self.short_of_two_pi else f"{self.range_rad / math.pi:.2f}pi"
 
+    def metadata_fields(self) -> dict:
+        """JSON-ready fields lut.json needs beyond the table's figures: direction, convention, range, dips."""
+        return {"direction": self.direction, "phase_convention": self.phase_convention,
+                "short_of_two_pi": self.short_of_two_pi, "range_label": self.range_label,
+                "header": self.header_line(), "worst_linearity_rad": self.worst_linearity_rad,
+                "worst_error_rad": self.worst_error_rad, "dips": [d.summary() for d in self.dips]}
+
     def header_line(self) -> str:
         """One line that says what the table holds (a text file writes it as a comment above the grays)."""
         step = self.range_rad / self.levels

@@ -300,3 +300,12 @@ def test_a_dip_is_recorded_and_the_stated_error_follows_the_measured_curve():
         assert lut.worst_error_rad == pytest.approx(true_worst, rel=0.2)
         understated += lut.worst_quantisation_rad < 0.75 * true_worst
     assert understated >= 2
+
+
+def test_lut_metadata_fields_are_json_ready():
+    """The fields lut.json takes from a table survive json: direction, convention, range label, header, dips."""
+    gray = np.arange(256)
+    lut = build_lut(gray, -s_curve(gray, 1.4 * math.pi), np.full(256, 1e-3), bit_depth=8)
+    doc = json.loads(json.dumps(lut.metadata_fields()))
+    assert doc["direction"] == "falling" and doc["short_of_two_pi"] and doc["range_label"] == "1.40pi"
+    assert "exp(+i phi" in doc["phase_convention"] and doc["dips"] == []
