@@ -581,6 +581,40 @@ def estimator_floor_rad(gray, difference_rad) -> float:
     return math.sqrt(max(excess, 0.0))
 
 
+def _remove_drift(gray, phase, std, time_s, contrast, cyclic, reference_gray, scale_gray, warnings):
+    """Fit the drift model to the reference visits and return it (or None) with the frames' corrected phases.
+
+    With a second reference gray the scale acts on unwrapped phase: each frame takes the 2 pi branch of its level
+    in a first, piston-only pass (which also gives the second gray's phase above the first, to place its visits).
+    """
+    is_ref = gray == reference_gray
+    # Visits are counted in time order so that frames handed over shuffled still group correctly.
+    order = np.argsort(time_s, kind="stable")
+    visit = _visits(is_ref, order)
+    if len(np.unique(visit[is_ref])) < 2:
+        if scale_gray is not None:
+            warnings.append(f"reference gray {reference_gray} was measured in fewer than two visits: no drift model")
+        return None, phase
+    drift = fit_drift(time_s[is_ref], phase[is_ref], std[is_ref], visit[is_ref])
+    piston_only = np.angle(np.exp(1j * (phase - drift(time_s))))
+    if scale_gray is None:
+        return drift, piston_only
+    is_sc = gray == scale_gray
+    visit_sc = _visits(is_sc, order)
+    if len(np.unique(visit_sc[is_sc])) < 2:
+        warnings.append(f"scale gray {scale_gray} was measured in fewer than two visits: piston drift only")
+        return drift, piston_only
+    first = _level_stats(gray, piston_only, std, time_s, contrast, cyclic)
+    rough = unwrap_levels(first.gray, first.mean_rad)
+    rough = rough - rough[first.gray == reference_gray][0]
+    sel = is_ref | is_sc
+    drift = fit_drift_scale(time_s[sel], phase[sel], std[sel], np.where(is_sc, visit_sc, visit)[sel], is_sc[sel],
+                            float(rough[first.gray == scale_gray][0]), scale_gray)
+    branch = rough[np.searchsorted(first.gray, gray)]
+    unwrapped = branch + np.angle(np.exp(1j * (phase - drift(time_s) - branch)))
+    return drift, np.angle(np.exp(1j * unwrapped / (1 + drift.scale(time_s))))
+
+
 def phase_curve(gray, phase_rad, std_rad, time_s=None, contrast=None, reference_gray: int = 0,
                 sign: int | None = None, smooth: bool = False, *, direction: str = "unknown",
                 direction_basis: str | None = None, amplitude=None, scale_gray: int | None = None,
@@ -645,34 +679,7 @@ def phase_curve(gray, phase_rad, std_rad, time_s=None, contrast=None, reference_
                 warnings.append(f"cyclic error of a leak |L|/a = {leak.ratio:.4f} +- {leak.ratio_std:.4f} "
                                 f"{leak.reason}; the error left in is carried in the uncertainty")
 
-    # Visits are counted in time order so that frames handed over shuffled still group correctly.
-    order = np.argsort(time_s, kind="stable")
-    visit = _visits(is_ref, order)
-    drift, rough = None, None
-    if len(np.unique(visit[is_ref])) >= 2:
-        drift = fit_drift(time_s[is_ref], phase[is_ref], std[is_ref], visit[is_ref])
-        if scale_gray is not None:
-            is_sc = gray == scale_gray
-            visit_sc = _visits(is_sc, order)
-            if len(np.unique(visit_sc[is_sc])) >= 2:
-                first = _level_stats(gray, np.angle(np.exp(1j * (phase - drift(time_s)))), std, time_s, contrast,
-                                     cyclic)
-                rough = unwrap_levels(first.gray, first.mean_rad)
-                rough = rough - rough[first.gray == reference_gray][0]
-                sel = is_ref | is_sc
-                drift = fit_drift_scale(time_s[sel], phase[sel], std[sel], np.where(is_sc, visit_sc, visit)[sel],
-                                        is_sc[sel], float(rough[first.gray == scale_gray][0]), scale_gray)
-            else:
-                warnings.append(f"scale gray {scale_gray} was measured in fewer than two visits: piston drift only")
-    elif scale_gray is not None:
-        warnings.append(f"reference gray {reference_gray} was measured in fewer than two visits: no drift model")
-    if drift is not None:
-        phase = np.angle(np.exp(1j * (phase - drift(time_s))))
-    if drift is not None and drift.scale_coefficients:
-        # The scale acts on the unwrapped phase: each frame takes the branch of its level in the first pass.
-        branch = rough[np.searchsorted(first.gray, gray)]
-        unwrapped_frames = branch + np.angle(np.exp(1j * (phase - branch)))
-        phase = np.angle(np.exp(1j * unwrapped_frames / (1 + drift.scale(time_s))))
+    drift, phase = _remove_drift(gray, phase, std, time_s, contrast, cyclic, reference_gray, scale_gray, warnings)
 
     lv = _level_stats(gray, phase, std, time_s, contrast, cyclic)
     pixel, scatter, excess, dof, own = _frame_scatter(lv)
@@ -705,7 +712,6 @@ def phase_curve(gray, phase_rad, std_rad, time_s=None, contrast=None, reference_
         basis = direction_basis
     else:
         basis = "given by the caller" if direction != "unknown" else "from the given sign" if sign_given else "assumed"
-
 
     floor = leak.residual_rad if leak is not None else 0.0
     if disagreement is not None:

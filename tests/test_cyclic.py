@@ -94,8 +94,8 @@ def test_no_leak_no_correction():
 
 
 def test_short_arc_is_reported_not_applied():
-    """Phases over about 1.1 pi (grays 0..90): the leak is fitted with a constant amplitude and reported, never applied; the
-    cyclic error left in is stated per point and covers the true error at 2 sigma in most points."""
+    """Phases over about 1.1 pi (grays 0..90): the leak is fitted with a constant amplitude and reported, never
+    applied; the cyclic error left in is stated per point and covers the true error at 2 sigma in most points."""
     g, z, std, phi, leak, a = amplitudes(0.05, seed=3, top_gray=90, amp_slope=0.0)
     assert np.ptp(phi) < MIN_ARC_RAD
     fit = fit_leak(g, z, std)
