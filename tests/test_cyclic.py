@@ -81,7 +81,8 @@ def test_correction_brings_the_phase_error_down_to_the_noise(ratio):
 
 def test_no_leak_no_correction():
     """Without a leak the correction is applied in few draws: 200 seeds, about 1 % expected for a 3-sigma test on
-    two components (exp(-9/2); 2 of these 200 draws), at most 3 % allowed; when not applied the left-in error stated is at noise level."""
+    two components (exp(-9/2); 2 of these 200 draws), at most 3 % allowed; when not applied the left-in error
+    stated is at noise level."""
     applied = 0
     for seed in range(200):
         g, z, std, phi, leak, a = amplitudes(0.0, seed, frames=1)
