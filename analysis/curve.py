@@ -1,25 +1,40 @@
-"""Phase-vs-gray curve from per-frame fringe phases: drift removal, level means, unwrapping, sign, smooth fit.
+"""Phase-vs-gray curve from per-frame fringe results: cyclic correction, drift, level means, unwrapping,
+direction, uncertainty budget, dips and a smooth fit.
 
-Frames come in acquisition order with their gray, wrapped phase (rad), standard uncertainty (rad) and time (s).
-Repeats of the reference gray spread through the sweep are drift references: their phase against time is the
-drift, which is subtracted from every frame before the levels are combined. Every visit's noise enters the drift
-model and, through it, every level, so the model has only as many terms as the visits show to be there: a curve
-through every visit (or an extrapolation of one beyond the last visit) would add each visit's noise to the levels
-near it, and several times that noise past the last visit.
+Frames come in acquisition order with their gray, wrapped phase (rad), standard uncertainty (rad) and time (s);
+optionally their fringe amplitude, which makes each frame's complex amplitude for the leak (cyclic-error) fit of
+``analysis.cyclic``. Repeats of the reference gray spread through the sweep are drift references: their phase
+against time is the piston drift. Repeats of a second reference gray (``scale_gray``) add the drift of the curve's
+scale: the measured phase is modelled as (1 + s(t)) phi(g) + p(t), s(t0) = 0 at the first reference visit, so the
+curve is that of the panel as it was then. Every visit's noise enters the drift model and, through it, every level,
+so the model has only as many terms as the visits show to be there.
+
+Each level's standard uncertainty is a budget after the GUM (JCGM 100:2008), components combined in quadrature:
+pixel noise (the estimator's stated std), frame scatter beyond it (type A, pooled over the levels), the drift
+model's uncertainty, the cyclic correction's uncertainty (or the cyclic error left in when it is not applied), and
+a systematic floor from the distortion the circle model leaves.
 """
 
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 
 import numpy as np
-from scipy import interpolate, optimize
+from scipy import interpolate, optimize, stats
+
+from analysis.cyclic import MIN_ARC_RAD, LeakFit, fit_leak
 
 MAX_DRIFT_DEGREE = 3     # drift is modelled as a polynomial in time of at most this degree
 DRIFT_TERM_CHI2 = 9.0    # a higher drift degree is kept only if it lowers chi-square this much (a 3-sigma term)
 OUTLIER_SIGMAS = 5.0     # frames or levels this many robust standard deviations off are rejected
 SMOOTH_KNOT_SPACING = 16  # gray levels between knots of the monotone smooth fit
+DIP_SIGMAS = 3.0         # a fall against the curve's direction this many combined standard errors deep is a dip
+OWN_SCATTER_P = 0.01     # a level whose frames scatter beyond the pooled spread at this level uses its own spread
+SCALE_SIGMAS = 3.0       # a scale drift seen this many standard errors from zero (one reference gray) is warned of
+DIRECTIONS = {"rising": 1, "falling": -1}
+PHASE_CONVENTION = ("phase is the delay the panel adds to the reflected field (the field is multiplied by "
+                    "exp(+i phi(g)), waves written exp(i(k.r - w t))), relative to the reference gray")
 
 
 class CurveError(ValueError):
@@ -28,40 +43,100 @@ class CurveError(ValueError):
 
 @dataclass(frozen=True)
 class DriftModel:
-    """Drift of the fringe phase (rad) against time (s): a polynomial in (t - t0), fitted to reference visits.
+    """Drift of the fringe phase (rad) against time (s): piston p(t) and, with a second reference gray, scale s(t).
 
-    ``covariance`` (rad^2, same order as the coefficients) is that of the weighted fit; ``chi2`` the visits'
-    chi-square about the model, which is near ``n_visits - degree - 1`` when the visit uncertainties are honest.
+    The measured phase is (1 + s(t)) phi(g) + p(t), phi relative to the reference gray. ``coefficients`` are p's,
+    a polynomial in (t - t0), highest power first (as numpy.polyval takes them); ``scale_coefficients`` those of
+    q(t) = (1 + s(t)) phi(scale_gray), the second reference's phase above the first, so s(t) = q(t) / q(t0) - 1.
+    ``covariance`` (rad^2) is that of the piston coefficients, ``joint_covariance`` that of piston then scale
+    coefficients; ``chi2`` the visits' chi-square about the model, near the visits less the terms when their
+    uncertainties are honest. Without a second reference the scale is zero and its fields are empty.
     """
 
-    coefficients: tuple[float, ...]  # highest power first, as numpy.polyval takes them
+    coefficients: tuple[float, ...]
     t0_s: float
     n_visits: int
-    span_rad: float  # largest minus smallest drift over the sweep
+    span_rad: float  # largest minus smallest piston over the sweep
     covariance: tuple[tuple[float, ...], ...] = ()
     chi2: float = 0.0
+    scale_coefficients: tuple[float, ...] = ()
+    scale_gray: int | None = None
+    scale_visits: int = 0
+    joint_covariance: tuple[tuple[float, ...], ...] = ()
+    scale_span: float = 0.0  # largest minus smallest s(t) over the sweep (dimensionless)
 
     def __call__(self, t_s: np.ndarray) -> np.ndarray:
         return np.polyval(self.coefficients, np.asarray(t_s, dtype=float) - self.t0_s)
 
-    def std_rad(self, t_s: np.ndarray) -> np.ndarray:
-        """Standard uncertainty (rad) of the modelled drift at times ``t_s`` (s), from the visits' noise."""
-        powers = np.vander(np.atleast_1d(np.asarray(t_s, dtype=float)) - self.t0_s, len(self.coefficients))
-        if not self.covariance:
-            return np.zeros(powers.shape[0])
-        cov = np.asarray(self.covariance)
-        return np.sqrt(np.maximum(np.einsum("ij,jk,ik->i", powers, cov, powers), 0.0))
+    def scale(self, t_s: np.ndarray) -> np.ndarray:
+        """Relative scale change s(t) at times ``t_s`` (s); zero without a second reference gray."""
+        t = np.asarray(t_s, dtype=float)
+        if not self.scale_coefficients:
+            return np.zeros_like(t)
+        return np.polyval(self.scale_coefficients, t - self.t0_s) / self.scale_coefficients[-1] - 1.0
+
+    def std_rad(self, t_s: np.ndarray, phase_rad: np.ndarray | float = 0.0) -> np.ndarray:
+        """Standard uncertainty (rad) of the drift correction at times ``t_s`` (s) for phases ``phase_rad``.
+
+        The corrected phase is (measured - p(t)) / (1 + s(t)); this is its uncertainty from the visits' noise
+        through the model's covariance (a piston only: that of p(t)).
+        """
+        t = np.atleast_1d(np.asarray(t_s, dtype=float)) - self.t0_s
+        piston = np.vander(t, len(self.coefficients))
+        if not self.scale_coefficients:
+            if not self.covariance:
+                return np.zeros(t.size)
+            return np.sqrt(np.maximum(np.einsum("ij,jk,ik->i", piston, np.asarray(self.covariance), piston), 0.0))
+        phase = np.broadcast_to(np.asarray(phase_rad, dtype=float), t.shape)
+        q = np.asarray(self.scale_coefficients)
+        powers = np.vander(t, q.size)
+        b0 = q[-1]
+        one_plus_s = (powers @ q) / b0
+        ds_dq = powers / b0
+        ds_dq[:, -1] -= (powers @ q) / b0**2
+        jac = np.column_stack([-piston / one_plus_s[:, None], -(phase / one_plus_s)[:, None] * ds_dq])
+        cov = np.asarray(self.joint_covariance)
+        return np.sqrt(np.maximum(np.einsum("ij,jk,ik->i", jac, cov, jac), 0.0))
+
+    def summary(self, time_base: str = "time_s") -> dict:
+        """JSON-ready description of the model (coefficients in rad per unit of the time base to a power)."""
+        out = {"model": f"piston: polynomial of degree {len(self.coefficients) - 1} in time", "t0_s": self.t0_s,
+               "coefficients_rad_per_s_power": list(self.coefficients), "reference_visits": self.n_visits,
+               "span_rad": self.span_rad, "chi2": self.chi2, "time_base": time_base}
+        if self.scale_coefficients:
+            out.update(scale_model=f"scale: polynomial of degree {len(self.scale_coefficients) - 1} in time, "
+                                   f"from visits of gray {self.scale_gray}",
+                       scale_gray=self.scale_gray, scale_visits=self.scale_visits,
+                       scale_coefficients_rad_per_s_power=list(self.scale_coefficients), scale_span=self.scale_span)
+        return out
+
+
+@dataclass(frozen=True)
+class Dip:
+    """A fall of the measured curve against its direction: from ``from_gray`` to ``to_gray``, ``depth_rad`` deep,
+    ``significance`` combined standard errors of the two levels."""
+
+    from_gray: int
+    to_gray: int
+    depth_rad: float
+    significance: float
+
+    def summary(self) -> dict:
+        return {"from_gray": self.from_gray, "to_gray": self.to_gray, "depth_rad": self.depth_rad,
+                "significance_sigma": self.significance}
 
 
 @dataclass(frozen=True)
 class CurveSummary:
-    """Figures of a phase curve: range (rad), first gray at 2 pi (None if never), fit rms (rad), worst std (rad)."""
+    """Figures of a phase curve: range (rad), first gray at 2 pi (None if never), fit rms (rad), worst std (rad),
+    and the dips found."""
 
     range_rad: float
     first_gray_2pi: int | None
     smooth_rms_rad: float | None
     worst_std_rad: float
     worst_std_gray: int
+    dips: tuple[Dip, ...] = ()
 
     @property
     def range_pi(self) -> float:
@@ -69,9 +144,67 @@ class CurveSummary:
         return self.range_rad / math.pi
 
 
+@dataclass(frozen=True, eq=False)
+class UncertaintyBudget:
+    """Per-level standard uncertainties (rad) by source, combined in quadrature (GUM, JCGM 100:2008).
+
+    Type A: ``pixel_noise_rad`` (the estimator's stated std over the level's frames), ``frame_scatter_rad`` (the
+    frames' spread beyond it: pooled over all levels, or the level's own where it scatters significantly more),
+    ``drift_rad`` (the drift model's, from the visits' noise). Type B: ``cyclic_rad`` (the cyclic correction's
+    uncertainty, or the cyclic error left in where it is not applied), ``floor_rad`` (distortion the leak model
+    leaves, from the radial residual's harmonics). ``excess_scatter_rad`` is the pooled per-frame scatter beyond
+    the stated std, ``scatter_dof`` its degrees of freedom, ``own_scatter_grays`` the levels using their own.
+    """
+
+    gray: np.ndarray
+    pixel_noise_rad: np.ndarray
+    frame_scatter_rad: np.ndarray
+    drift_rad: np.ndarray
+    cyclic_rad: np.ndarray
+    floor_rad: np.ndarray
+    excess_scatter_rad: float = 0.0
+    scatter_dof: int = 0
+    own_scatter_grays: tuple[int, ...] = ()
+
+    COMPONENTS = ("pixel_noise_rad", "frame_scatter_rad", "drift_rad", "cyclic_rad", "floor_rad")
+
+    @property
+    def combined_rad(self) -> np.ndarray:
+        """Combined standard uncertainty (rad) of each level."""
+        return np.sqrt(sum(getattr(self, name) ** 2 for name in self.COMPONENTS))
+
+    def select(self, keep: np.ndarray) -> UncertaintyBudget:
+        """The budget of the levels where ``keep`` is true."""
+        return UncertaintyBudget(self.gray[keep], *(getattr(self, n)[keep] for n in self.COMPONENTS),
+                                 self.excess_scatter_rad, self.scatter_dof, self.own_scatter_grays)
+
+    def summary(self) -> dict:
+        """JSON-ready budget: each component's median and largest value over the levels (rad), and the pooling."""
+        kinds = {"pixel_noise_rad": "A", "frame_scatter_rad": "A", "drift_rad": "A", "cyclic_rad": "B",
+                 "floor_rad": "B"}
+        parts = {name[:-4]: {"type": kinds[name], "median_rad": float(np.median(getattr(self, name))),
+                             "max_rad": float(np.max(getattr(self, name)))} for name in self.COMPONENTS}
+        combined = self.combined_rad
+        return {"method": "GUM (JCGM 100:2008): standard uncertainties combined in quadrature", "components": parts,
+                "combined_median_rad": float(np.median(combined)), "combined_max_rad": float(np.max(combined)),
+                "excess_frame_scatter_rad": self.excess_scatter_rad, "scatter_dof": self.scatter_dof,
+                "own_scatter_grays": list(self.own_scatter_grays)}
+
+    def rows(self) -> list[dict]:
+        """One JSON-ready dict per level: gray and each component (rad)."""
+        return [{"gray": int(g), **{n: float(getattr(self, n)[i]) for n in self.COMPONENTS},
+                 "combined_rad": float(self.combined_rad[i])} for i, g in enumerate(self.gray)]
+
+
 @dataclass(frozen=True)
 class PhaseCurve:
-    """Phase (rad) against gray relative to the reference gray, one entry per measured gray (ascending)."""
+    """Phase (rad) against gray relative to the reference gray, one entry per measured gray (ascending).
+
+    ``std_rad`` is the combined standard uncertainty of ``budget``. ``direction`` is "rising" or "falling";
+    ``direction_basis`` how it was known ("assumed" when the caller did not say). ``sign`` is the factor that turned
+    fringe phase into panel phase. ``cyclic`` is the leak fit (None without amplitudes); ``warnings`` what the
+    analysis could not remove.
+    """
 
     gray: np.ndarray
     phase_rad: np.ndarray
@@ -85,6 +218,23 @@ class PhaseCurve:
     rejected_grays: tuple[int, ...]
     smooth_rad: np.ndarray | None
     summary: CurveSummary
+    direction: str = "rising"
+    direction_basis: str = "assumed"
+    budget: UncertaintyBudget | None = None
+    cyclic: LeakFit | None = None
+    warnings: tuple[str, ...] = field(default=())
+
+    def analysis_fields(self, time_base: str = "time_s") -> dict:
+        """JSON-ready figures of the corrections and the uncertainty, for analysis.json (phases in rad)."""
+        return {
+            "direction": self.direction, "direction_basis": self.direction_basis, "sign": self.sign,
+            "phase_convention": PHASE_CONVENTION,
+            "drift": None if self.drift is None else self.drift.summary(time_base),
+            "cyclic": None if self.cyclic is None else self.cyclic.summary(),
+            "budget": None if self.budget is None else self.budget.summary(),
+            "budget_per_level": [] if self.budget is None else self.budget.rows(),
+            "dips": [d.summary() for d in self.summary.dips], "warnings": list(self.warnings),
+        }
 
 
 def circular_mean(phase_rad: np.ndarray, std_rad: np.ndarray) -> tuple[float, float]:
@@ -125,8 +275,51 @@ def unwrap_levels(gray: np.ndarray, phase_rad: np.ndarray, history: int = 4) -> 
     return out
 
 
+def _visit_means(time_s, phase_rad, std_rad, visit):
+    """Mean time (s), wrapped mean phase (rad) and its error (rad) of each visit, in visit order."""
+    visits = np.unique(visit)
+    t = np.array([time_s[visit == v].mean() for v in visits])
+    means = [circular_mean(phase_rad[visit == v], std_rad[visit == v]) for v in visits]
+    return t, np.array([m for m, _ in means]), np.array([max(s, 1e-9) for _, s in means])
+
+
+def _polyfit_select(x, y, err, blocks):
+    """Weighted least squares of y on polynomial blocks in x, each block's degree raised while it pays.
+
+    ``blocks`` is a list of row masks: block k adds powers of x on its rows. Degrees start at 0 and the block whose
+    next power lowers chi-square most gets it, while that lowers it by DRIFT_TERM_CHI2 and terms stay below rows.
+    Returns (degrees, coefficients per block highest first, covariance, chi2), x already scaled.
+    """
+    def fit(degrees):
+        cols = []
+        for mask, d in zip(blocks, degrees):
+            cols.append(np.vander(x, d + 1) * mask[:, None])
+        design = np.hstack(cols) / err[:, None]
+        cov = np.linalg.pinv(design.T @ design)
+        coeffs = cov @ design.T @ (y / err)
+        return coeffs, cov, float(np.sum((design @ coeffs - y / err) ** 2))
+
+    degrees = [0] * len(blocks)
+    best = fit(degrees)
+    while True:
+        trials = []
+        for k, mask in enumerate(blocks):
+            trial_deg = degrees.copy()
+            trial_deg[k] += 1
+            if trial_deg[k] > min(MAX_DRIFT_DEGREE, int(mask.sum()) - 1) or sum(trial_deg) + len(blocks) > x.size:
+                continue
+            trials.append((fit(trial_deg), trial_deg))
+        if not trials:
+            break
+        (coeffs, cov, chi2), trial_deg = min(trials, key=lambda tr: tr[0][2])
+        if best[2] - chi2 < DRIFT_TERM_CHI2:
+            break
+        best, degrees = (coeffs, cov, chi2), trial_deg
+    return degrees, *best
+
+
 def fit_drift(time_s: np.ndarray, phase_rad: np.ndarray, std_rad: np.ndarray, visit: np.ndarray) -> DriftModel:
-    """Drift polynomial through reference frames (time, wrapped phase, std, visit number).
+    """Piston drift polynomial through reference frames (time, wrapped phase, std, visit number).
 
     Frames of one visit are averaged first; visits are unwrapped in time order. The degree starts at 0 and goes up
     while one more power lowers the visits' weighted chi-square by DRIFT_TERM_CHI2 or more, up to MAX_DRIFT_DEGREE
@@ -134,44 +327,120 @@ def fit_drift(time_s: np.ndarray, phase_rad: np.ndarray, std_rad: np.ndarray, vi
     the levels. The visits' uncertainties must be honest for this test; circular_mean never lets them fall below
     the scatter of a visit's own frames.
     """
-    visits = np.unique(visit)
-    t = np.array([time_s[visit == v].mean() for v in visits])
-    means = [circular_mean(phase_rad[visit == v], std_rad[visit == v]) for v in visits]
-    phi = np.unwrap(np.array([m for m, _ in means]))
-    err = np.array([max(s, 1e-9) for _, s in means])
-    t0 = float(t[0])
+    t, phi, err = _visit_means(np.asarray(time_s, float), np.asarray(phase_rad, float), np.asarray(std_rad, float),
+                               np.asarray(visit))
+    return _drift_model(t, np.unwrap(phi), err, np.zeros(t.size, bool), None)
+
+
+def fit_drift_scale(time_s, phase_rad, std_rad, visit, is_scale, scale_phase_rad: float,
+                    scale_gray: int) -> DriftModel:
+    """Piston and scale drift through visits of two reference grays (time, wrapped phase, std, visit, which gray).
+
+    ``is_scale`` marks frames of the second reference gray, ``scale_phase_rad`` an estimate of its phase above the
+    first (from the levels, to pick its 2 pi branch). The first gray's visits give p(t); the second's give
+    p(t) + q(t), q(t) = (1 + s(t)) phi(scale_gray); both polynomials are fitted together, each with the degree its
+    visits show (see fit_drift).
+    """
+    time_s, phase_rad, std_rad = (np.asarray(a, float) for a in (time_s, phase_rad, std_rad))
+    visit, is_scale = np.asarray(visit), np.asarray(is_scale, bool)
+    ta, pa, ea = _visit_means(time_s[~is_scale], phase_rad[~is_scale], std_rad[~is_scale], visit[~is_scale])
+    tb, pb, eb = _visit_means(time_s[is_scale], phase_rad[is_scale], std_rad[is_scale], visit[is_scale])
+    pa = np.unwrap(pa)
+    piston = _drift_model(ta, pa, ea, np.zeros(ta.size, bool), None)
+    base = piston(tb) + scale_phase_rad
+    pb = base + np.angle(np.exp(1j * (pb - base)))
+    order = np.argsort(np.r_[ta, tb], kind="stable")
+    return _drift_model(np.r_[ta, tb][order], np.r_[pa, pb][order], np.r_[ea, eb][order],
+                        np.r_[np.zeros(ta.size, bool), np.ones(tb.size, bool)][order], scale_gray)
+
+
+def _drift_model(t, phi, err, is_scale, scale_gray) -> DriftModel:
+    """The DriftModel of visit means (unwrapped) at times t; ``is_scale`` rows also carry q(t)."""
+    t0 = float(t[~is_scale][0])
     # Scaled time keeps the normal equations well conditioned; coefficients are converted back below.
-    scale = max(float(np.ptp(t)), 1e-9)
-    x = (t - t0) / scale
-
-    def fit(degree):
-        design = np.vander(x, degree + 1) / err[:, None]
-        cov = np.linalg.inv(design.T @ design)
-        coeffs = cov @ design.T @ (phi / err)
-        return coeffs, cov, float(np.sum((design @ coeffs - phi / err) ** 2))
-
-    coeffs, cov, chi2 = fit(0)
-    for degree in range(1, min(MAX_DRIFT_DEGREE, len(visits) - 1) + 1):
-        trial = fit(degree)
-        if chi2 - trial[2] < DRIFT_TERM_CHI2:
-            break
-        coeffs, cov, chi2 = trial
-    unscale = scale ** -np.arange(coeffs.size - 1, -1, -1.0)
+    span = max(float(np.ptp(t)), 1e-9)
+    x = (t - t0) / span
+    blocks = [np.ones(t.size, bool)] + ([is_scale] if is_scale.any() else [])
+    degrees, coeffs, cov, chi2 = _polyfit_select(x, phi, err, blocks)
+    unscale = np.concatenate([span ** -np.arange(d, -1, -1.0) for d in degrees])
     coeffs, cov = coeffs * unscale, cov * np.outer(unscale, unscale)
+    n_p = degrees[0] + 1
     ts = np.linspace(t.min(), t.max(), 64) - t0
-    values = np.polyval(coeffs, ts)
-    return DriftModel(tuple(float(c) for c in coeffs), t0, len(visits), float(values.max() - values.min()),
-                      tuple(tuple(float(c) for c in row) for row in cov), chi2)
+    values = np.polyval(coeffs[:n_p], ts)
+    as_tuple = lambda m: tuple(tuple(float(c) for c in row) for row in m)  # noqa: E731
+    scale_fields = {}
+    if len(degrees) == 2:
+        q = coeffs[n_p:]
+        s = np.polyval(q, ts) / q[-1] - 1
+        scale_fields = dict(scale_coefficients=tuple(float(c) for c in q), scale_gray=int(scale_gray),
+                            scale_visits=int(is_scale.sum()), joint_covariance=as_tuple(cov),
+                            scale_span=float(s.max() - s.min()))
+    return DriftModel(tuple(float(c) for c in coeffs[:n_p]), t0, int((~is_scale).sum()),
+                      float(values.max() - values.min()), as_tuple(cov[:n_p, :n_p]), chi2, **scale_fields)
 
 
-def monotone_fit(gray: np.ndarray, phase_rad: np.ndarray, std_rad: np.ndarray) -> np.ndarray:
-    """Smooth rising fit of phase (rad) against gray: a cubic spline whose slope is held non-negative.
+def isotonic_blocks(y: np.ndarray, weight: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Pool-adjacent-violators: the weighted least-squares non-decreasing fit's block means and block sizes."""
+    means, weights, counts = [], [], []
+    for value, w in zip(np.asarray(y, float), np.asarray(weight, float)):
+        means.append(value)
+        weights.append(w)
+        counts.append(1)
+        while len(means) > 1 and means[-2] > means[-1]:
+            w_sum = weights[-2] + weights[-1]
+            means[-2] = (means[-2] * weights[-2] + means[-1] * weights[-1]) / w_sum
+            weights[-2] = w_sum
+            counts[-2] += counts[-1]
+            del means[-1], weights[-1], counts[-1]
+    return np.array(means), np.array(counts, dtype=int)
+
+
+def isotonic(y: np.ndarray, weight: np.ndarray) -> np.ndarray:
+    """Weighted least-squares non-decreasing fit to ``y`` (pool-adjacent-violators)."""
+    means, counts = isotonic_blocks(y, weight)
+    return np.repeat(means, counts)
+
+
+def find_dips(gray, phase_rad, std_rad, direction: int = 1) -> tuple[Dip, ...]:
+    """Falls of a measured curve against its direction (+1 rising, -1 falling) that noise does not explain.
+
+    The isotonic fit pools levels that go the wrong way into blocks. A block is a dip when its levels scatter about
+    their mean more than noise does (chi-square beyond the DIP_SIGMAS two-sided normal tail for its degrees of
+    freedom) and its deepest fall, from a level to a later one, exceeds DIP_SIGMAS combined standard errors: a
+    single noisy pair or a long flat stretch of noise passes neither.
+    """
+    g = np.asarray(gray)
+    y = direction * np.asarray(phase_rad, float)
+    std = np.maximum(np.asarray(std_rad, float), 1e-12)
+    _, counts = isotonic_blocks(y, 1 / std**2)
+    p_limit = 2 * stats.norm.sf(DIP_SIGMAS)
+    dips, start = [], 0
+    for count in counts:
+        idx = np.arange(start, start + count)
+        start += count
+        if count < 2:
+            continue
+        w = 1 / std[idx] ** 2
+        mean = np.sum(w * y[idx]) / w.sum()
+        if stats.chi2.sf(float(np.sum(w * (y[idx] - mean) ** 2)), count - 1) > p_limit:
+            continue
+        fall = y[idx][:, None] - y[idx][None, :]
+        sigma = np.hypot(std[idx][:, None], std[idx][None, :])
+        z = np.triu(fall / sigma, 1)
+        i, j = np.unravel_index(np.argmax(z), z.shape)
+        if z[i, j] > DIP_SIGMAS:
+            dips.append(Dip(int(g[idx[i]]), int(g[idx[j]]), float(fall[i, j]), float(z[i, j])))
+    return tuple(dips)
+
+
+def monotone_fit(gray: np.ndarray, phase_rad: np.ndarray, std_rad: np.ndarray, direction: int = 1) -> np.ndarray:
+    """Smooth monotone fit of phase (rad) against gray, rising (``direction`` +1) or falling (-1).
 
     The curve is c0 + sum_k w_k I_k(g) with I_k integrals of cubic B-splines (knots every SMOOTH_KNOT_SPACING
-    grays), weights 1/std, and w_k >= 0, solved by bounded linear least squares; non-negative B-spline weights make
-    a non-negative slope.
+    grays), weights 1/std, and w_k >= 0, solved by bounded linear least squares on direction * phase; non-negative
+    B-spline weights make a non-negative slope.
     """
-    g, y = np.asarray(gray, float), np.asarray(phase_rad, float)
+    g, y = np.asarray(gray, float), direction * np.asarray(phase_rad, float)
     w = 1 / np.maximum(np.asarray(std_rad, float), 1e-9 * max(np.ptp(y), 1.0))
     span = g.max() - g.min()
     n_inner = max(int(span // SMOOTH_KNOT_SPACING) - 1, 0)
@@ -188,7 +457,7 @@ def monotone_fit(gray: np.ndarray, phase_rad: np.ndarray, std_rad: np.ndarray) -
     design = np.column_stack([np.ones_like(g)] + columns)
     lower = np.r_[-np.inf, np.zeros(n_basis)]
     fit = optimize.lsq_linear(design * w[:, None], y * w, bounds=(lower, np.full(n_basis + 1, np.inf)))
-    return design @ fit.x
+    return direction * (design @ fit.x)
 
 
 def _cumulative(x: np.ndarray, y: np.ndarray) -> np.ndarray:
@@ -196,15 +465,176 @@ def _cumulative(x: np.ndarray, y: np.ndarray) -> np.ndarray:
     return np.concatenate([[0.0], np.cumsum(0.5 * (y[1:] + y[:-1]) * np.diff(x))])
 
 
+def scale_drift_check(gray, phase_rad, std_rad, time_s) -> tuple[float, float]:
+    """Scale change over the sweep (dimensionless) seen in the levels alone, and its standard uncertainty.
+
+    A scale drift s(t) = beta (t - mean t) moves each level by beta phi (t - mean t). Fitted together with a
+    smooth cubic spline in gray (knots every SMOOTH_KNOT_SPACING grays), beta is seen only when the levels were
+    measured out of gray order; in gray order its uncertainty is large and nothing is claimed. The covariance is
+    scaled by chi-square per degree of freedom when that exceeds 1.
+    """
+    g, y = np.asarray(gray, float), np.asarray(phase_rad, float)
+    std, t = np.maximum(np.asarray(std_rad, float), 1e-12), np.asarray(time_s, float)
+    span_t = max(float(np.ptp(t)), 1e-9)
+    n_inner = max(int(np.ptp(g) // SMOOTH_KNOT_SPACING) - 1, 0)
+    if g.size < n_inner + 4 + 3:
+        return 0.0, math.inf
+    knots = np.concatenate([[g.min()] * 4, np.linspace(g.min(), g.max(), n_inner + 2)[1:-1], [g.max()] * 4])
+    basis = interpolate.BSpline.design_matrix(g, knots, 3).toarray()
+    design = np.column_stack([basis, y * (t - t.mean()) / span_t]) / std[:, None]
+    coef, *_ = np.linalg.lstsq(design, y / std, rcond=None)
+    chi2 = float(np.sum((design @ coef - y / std) ** 2))
+    cov = np.linalg.pinv(design.T @ design) * max(chi2 / max(g.size - design.shape[1], 1), 1.0)
+    return float(coef[-1]), float(math.sqrt(max(cov[-1, -1], 0.0)))
+
+
+def _visits(mask: np.ndarray, order: np.ndarray) -> np.ndarray:
+    """Visit number of each frame where ``mask``: a masked frame after unmasked ones (in time order) starts one."""
+    visit = np.zeros(mask.size, dtype=int)
+    m = mask[order]
+    visit[order] = np.cumsum(np.r_[True, ~m[:-1]] & m)
+    return visit
+
+
+@dataclass(frozen=True)
+class _Levels:
+    """Per-level statistics of drift-corrected frames (arrays over ascending grays)."""
+
+    gray: np.ndarray
+    mean_rad: np.ndarray       # circular mean, wrapped
+    n: np.ndarray
+    stated_var: np.ndarray     # mean of the frames' stated variances (rad^2)
+    own_var: np.ndarray        # the frames' sample variance about their mean (rad^2; NaN for one frame)
+    time_s: np.ndarray
+    contrast: np.ndarray
+    cyclic_rad: np.ndarray     # the cyclic correction's std, common to the level's frames
+    keep: np.ndarray           # frames kept (outliers rejected)
+
+
+def _level_stats(gray, phase, std, time_s, contrast, cyclic) -> _Levels:
+    """Group frames by gray, reject outlier frames, and return each level's statistics."""
+    levels = np.unique(gray)
+    keep = np.ones(gray.size, dtype=bool)
+    rows = []
+    for g in levels:
+        idx = np.flatnonzero(gray == g)
+        if idx.size >= 3:
+            # The medoid (the frame nearest all others) is a centre that one wild frame cannot drag.
+            pairwise = np.abs(np.angle(np.exp(1j * (phase[idx][:, None] - phase[idx][None, :]))))
+            dev = pairwise[np.argmin(pairwise.sum(axis=1))]
+            scale = max(1.4826 * float(np.median(dev)), float(np.median(std[idx])))
+            bad = dev > OUTLIER_SIGMAS * scale
+            if bad.sum() < idx.size / 2:
+                keep[idx[bad]] = False
+                idx = idx[~bad]
+        mean = float(np.angle(np.mean(np.exp(1j * phase[idx]))))
+        dev = np.angle(np.exp(1j * (phase[idx] - mean)))
+        own = float(np.sum(dev**2) / (idx.size - 1)) if idx.size >= 2 else math.nan
+        c = float(np.nanmean(contrast[idx])) if np.isfinite(contrast[idx]).any() else math.nan
+        rows.append((mean, idx.size, float(np.mean(std[idx] ** 2)), own, float(time_s[idx].mean()), c,
+                     float(np.mean(cyclic[idx]))))
+    cols = [np.array(c) for c in zip(*rows)]
+    return _Levels(levels, cols[0], cols[1].astype(int), cols[2], cols[3], cols[4], cols[5], cols[6], keep)
+
+
+def _frame_scatter(lv: _Levels) -> tuple[np.ndarray, np.ndarray, float, int, np.ndarray]:
+    """Pixel-noise and frame-scatter standard errors (rad) of each level's mean, as type-A evaluations.
+
+    The frames' spread beyond their stated std (vibration, flicker) is pooled over all levels with two or more
+    frames (JCGM 100:2008, 4.2.4): four frames alone give a spread uncertain by a factor of two. A level whose own
+    spread exceeds the pooled one at the OWN_SCATTER_P level of an F test uses its own. Returns pixel, scatter,
+    pooled excess per frame (rad), its degrees of freedom and the levels on their own spread.
+    """
+    multi = lv.n >= 2
+    own = np.zeros(lv.n.size, dtype=bool)
+    excess, dof = 0.0, 0
+    for _ in range(5):  # levels on their own spread leave the pool, which may free others
+        pool = multi & ~own
+        dof = int(np.sum(lv.n[pool] - 1))
+        if not dof:
+            break
+        excess = max(float(np.sum((lv.n[pool] - 1) * (lv.own_var[pool] - lv.stated_var[pool]))) / dof, 0.0)
+        limit = stats.f.isf(OWN_SCATTER_P, np.maximum(lv.n - 1, 1), dof)
+        flagged = multi & (np.nan_to_num(lv.own_var) > (lv.stated_var + excess) * limit)
+        if np.array_equal(flagged, own):
+            break
+        own = flagged
+    frame_var = np.where(own, lv.own_var, lv.stated_var + excess)
+    pixel = np.sqrt(lv.stated_var / lv.n)
+    scatter = np.sqrt(np.maximum(frame_var - lv.stated_var, 0.0) / lv.n)
+    return pixel, scatter, math.sqrt(excess), dof, own
+
+
+def estimator_floor_rad(gray, difference_rad) -> float:
+    """Systematic floor (rad) from two estimators' per-frame phase differences: their level means' RMS spread.
+
+    A constant difference is no error (the curve is relative), and the level means' own noise (their frames'
+    scatter over the frame count) is removed. The disagreement is taken whole as the possible error of either,
+    since it is the error of one when the other is right.
+    """
+    g, d = np.asarray(gray), np.asarray(difference_rad, float)
+    levels = np.unique(g)
+    means = np.array([np.angle(np.mean(np.exp(1j * d[g == v]))) for v in levels])
+    noise = [np.var(d[g == v], ddof=1) / np.sum(g == v) for v in levels if np.sum(g == v) >= 2]
+    spread = np.angle(np.exp(1j * (means - np.angle(np.mean(np.exp(1j * means))))))
+    excess = float(np.mean(spread**2)) - (float(np.mean(noise)) if noise else 0.0)
+    return math.sqrt(max(excess, 0.0))
+
+
+def _remove_drift(gray, phase, std, time_s, contrast, cyclic, reference_gray, scale_gray, warnings):
+    """Fit the drift model to the reference visits and return it (or None) with the frames' corrected phases.
+
+    With a second reference gray the scale acts on unwrapped phase: each frame takes the 2 pi branch of its level
+    in a first, piston-only pass (which also gives the second gray's phase above the first, to place its visits).
+    """
+    is_ref = gray == reference_gray
+    # Visits are counted in time order so that frames handed over shuffled still group correctly.
+    order = np.argsort(time_s, kind="stable")
+    visit = _visits(is_ref, order)
+    if len(np.unique(visit[is_ref])) < 2:
+        if scale_gray is not None:
+            warnings.append(f"reference gray {reference_gray} was measured in fewer than two visits: no drift model")
+        return None, phase
+    drift = fit_drift(time_s[is_ref], phase[is_ref], std[is_ref], visit[is_ref])
+    piston_only = np.angle(np.exp(1j * (phase - drift(time_s))))
+    if scale_gray is None:
+        return drift, piston_only
+    is_sc = gray == scale_gray
+    visit_sc = _visits(is_sc, order)
+    if len(np.unique(visit_sc[is_sc])) < 2:
+        warnings.append(f"scale gray {scale_gray} was measured in fewer than two visits: piston drift only")
+        return drift, piston_only
+    first = _level_stats(gray, piston_only, std, time_s, contrast, cyclic)
+    rough = unwrap_levels(first.gray, first.mean_rad)
+    rough = rough - rough[first.gray == reference_gray][0]
+    sel = is_ref | is_sc
+    drift = fit_drift_scale(time_s[sel], phase[sel], std[sel], np.where(is_sc, visit_sc, visit)[sel], is_sc[sel],
+                            float(rough[first.gray == scale_gray][0]), scale_gray)
+    branch = rough[np.searchsorted(first.gray, gray)]
+    unwrapped = branch + np.angle(np.exp(1j * (phase - drift(time_s) - branch)))
+    return drift, np.angle(np.exp(1j * unwrapped / (1 + drift.scale(time_s))))
+
+
 def phase_curve(gray, phase_rad, std_rad, time_s=None, contrast=None, reference_gray: int = 0,
-                sign: int | None = None, smooth: bool = False) -> PhaseCurve:
+                sign: int | None = None, smooth: bool = False, *, direction: str = "unknown",
+                direction_basis: str | None = None, amplitude=None, scale_gray: int | None = None,
+                check_phase_rad=None) -> PhaseCurve:
     """Build the phase curve from per-frame results in acquisition order.
 
-    ``time_s`` defaults to the acquisition index. ``sign`` +1 or -1 fixes the direction; None picks the one that
-    makes the curve rise with gray overall (its least-squares slope is positive). A reference-gray frame that
-    comes after frames of other grays starts a new drift visit; with two or more visits the drift is fitted and
-    removed, and its uncertainty at each level's time joins the level's standard error. Frames more than OUTLIER_SIGMAS off their level's mean (levels of three or more frames) and levels
-    that far off the median of their neighbours are rejected and listed.
+    ``time_s`` defaults to the acquisition index. ``direction`` ("rising", "falling") is how the panel's phase runs
+    with gray, as established by the caller (``direction_basis`` says how, e.g. "blazed-grating probe"); the curve
+    is signed to run that way. "unknown" keeps the old behaviour: the curve is made to rise and its direction is
+    recorded as assumed. ``sign`` +1 or -1 instead fixes the factor from fringe phase to panel phase directly (the
+    direction is then the data's); given with a direction, the two must agree.
+
+    ``amplitude`` (each frame's fringe amplitude, e.g. in ADU) turns on the cyclic-error fit of analysis.cyclic on
+    the complex amplitudes amplitude * exp(i phase); the correction is applied when significant. A reference-gray
+    frame after frames of other grays starts a drift visit; two or more visits give the piston drift, and two or
+    more visits of ``scale_gray`` too the scale drift. Frames more than OUTLIER_SIGMAS off their level's mean
+    (levels of three or more frames) and levels that far off a line through their neighbours are rejected and
+    listed. ``check_phase_rad``, the same frames' phases by a second, independent estimator, sizes a systematic
+    floor from the two's disagreement (see estimator_floor_rad). ``std_rad`` of the result is the combined
+    uncertainty of ``budget``.
     """
     gray = np.asarray(gray, dtype=int)
     phase = np.asarray(phase_rad, dtype=float)
@@ -218,66 +648,101 @@ def phase_curve(gray, phase_rad, std_rad, time_s=None, contrast=None, reference_
     contrast = np.full(n, np.nan) if contrast is None else np.asarray(contrast, dtype=float)
     if sign not in (None, 1, -1):
         raise CurveError(f"sign: expected +1, -1 or auto, got {sign!r}")
+    if direction not in ("rising", "falling", "unknown"):
+        raise CurveError(f"direction: expected rising, falling or unknown, got {direction!r}")
     is_ref = gray == reference_gray
     if not is_ref.any():
         raise CurveError(f"reference gray {reference_gray}: no frame was taken at it")
-    # Visits are counted in time order so that frames handed over shuffled still group correctly.
-    order = np.argsort(time_s, kind="stable")
-    visit = np.zeros(n, dtype=int)
-    visit[order] = np.cumsum(np.r_[True, ~is_ref[order][:-1]] & is_ref[order])
-    drift = None
-    if len(np.unique(visit[is_ref])) >= 2:
-        drift = fit_drift(time_s[is_ref], phase[is_ref], std[is_ref], visit[is_ref])
-        phase = np.angle(np.exp(1j * (phase - drift(time_s))))
+    if scale_gray is not None and (scale_gray == reference_gray or not (gray == scale_gray).any()):
+        raise CurveError(f"scale gray {scale_gray}: expected a gray other than the reference gray, with frames")
+    warnings: list[str] = []
+    disagreement = None
+    if check_phase_rad is not None:
+        check = np.asarray(check_phase_rad, dtype=float)
+        if check.shape != (n,) or not np.all(np.isfinite(check)):
+            raise CurveError("check_phase_rad: expected one finite phase per frame from the second estimator")
+        disagreement = np.angle(np.exp(1j * (check - phase)))
 
-    levels = np.unique(gray)
-    keep = np.ones(n, dtype=bool)
-    means, errors, counts, contrasts = [], [], [], []
-    for g in levels:
-        idx = np.flatnonzero(gray == g)
-        if idx.size >= 3:
-            # The medoid (the frame nearest all others) is a centre that one wild frame cannot drag.
-            pairwise = np.abs(np.angle(np.exp(1j * (phase[idx][:, None] - phase[idx][None, :]))))
-            dev = pairwise[np.argmin(pairwise.sum(axis=1))]
-            scale = max(1.4826 * float(np.median(dev)), float(np.median(std[idx])))
-            bad = dev > OUTLIER_SIGMAS * scale
-            if bad.sum() < idx.size / 2:
-                keep[idx[bad]] = False
-                idx = idx[~bad]
-        m, e = circular_mean(phase[idx], std[idx])
-        if drift is not None:
-            # The drift model's own error is common to a level's frames: it adds to the mean, not per frame.
-            e = math.hypot(e, float(drift.std_rad(time_s[idx].mean())[0]))
-        means.append(m)
-        errors.append(e)
-        counts.append(idx.size)
-        contrasts.append(float(np.nanmean(contrast[idx])) if np.isfinite(contrast[idx]).any() else math.nan)
-    means, errors = np.array(means), np.array(errors)
-    counts, contrasts = np.array(counts), np.array(contrasts)
+    leak, cyclic = None, np.zeros(n)
+    if amplitude is not None:
+        amp = np.asarray(amplitude, dtype=float)
+        if amp.shape != (n,) or not np.all(np.isfinite(amp) & (amp > 0)):
+            raise CurveError("amplitude: expected one positive, finite fringe amplitude per frame")
+        try:
+            leak = fit_leak(gray, amp * np.exp(1j * phase), std * amp)
+        except ValueError as exc:
+            warnings.append(f"cyclic error not fitted: {exc}")
+        if leak is not None:
+            phase = np.angle(np.exp(1j * (phase + leak.correction_rad)))
+            cyclic = leak.correction_std_rad
+            if not leak.applied and leak.arc_rad < MIN_ARC_RAD:
+                warnings.append(f"cyclic error of a leak |L|/a = {leak.ratio:.4f} +- {leak.ratio_std:.4f} "
+                                f"{leak.reason}; the error left in is carried in the uncertainty")
 
-    unwrapped = unwrap_levels(levels, means)
-    level_ok = _level_outliers(levels, unwrapped, errors)
-    rejected_grays = tuple(int(g) for g in levels[~level_ok] if g != reference_gray)
-    level_ok |= levels == reference_gray
-    levels, means, errors = levels[level_ok], means[level_ok], errors[level_ok]
-    counts, contrasts = counts[level_ok], contrasts[level_ok]
-    unwrapped = unwrap_levels(levels, means)
+    drift, phase = _remove_drift(gray, phase, std, time_s, contrast, cyclic, reference_gray, scale_gray, warnings)
+
+    lv = _level_stats(gray, phase, std, time_s, contrast, cyclic)
+    pixel, scatter, excess, dof, own = _frame_scatter(lv)
+    if not dof:
+        warnings.append("frame scatter not evaluated: every level has a single frame")
+    type_a = np.sqrt(pixel**2 + scatter**2 + lv.cyclic_rad**2)
+    unwrapped = unwrap_levels(lv.gray, lv.mean_rad)
+    level_ok = _level_outliers(lv.gray, unwrapped, type_a)
+    rejected_grays = tuple(int(g) for g in lv.gray[~level_ok] if g != reference_gray)
+    level_ok |= lv.gray == reference_gray
+    levels = lv.gray[level_ok]
+    unwrapped = unwrap_levels(levels, lv.mean_rad[level_ok])
     unwrapped = unwrapped - unwrapped[np.flatnonzero(levels == reference_gray)[0]]
+    t_level = lv.time_s[level_ok]
+    drift_std = np.zeros(levels.size)
+    if drift is not None:
+        drift_std = drift.std_rad(t_level, unwrapped)
+
+    data_slope = np.polyfit(levels, unwrapped, 1)[0] if levels.size >= 2 else 1.0
+    data_dir = 1 if data_slope >= 0 else -1
+    if sign is not None and direction != "unknown" and sign * data_dir != DIRECTIONS[direction]:
+        raise CurveError(f"direction: {direction} contradicts sign {sign:+d} on this data")
+    sign_given = sign is not None
     if sign is None:
-        slope = np.polyfit(levels, unwrapped, 1)[0] if levels.size >= 2 else 1.0
-        sign = 1 if slope >= 0 else -1
+        sign = data_dir * DIRECTIONS.get(direction, 1)
     curve = sign * unwrapped
-    fitted = monotone_fit(levels, curve, errors) if smooth and levels.size >= 4 else None
-    return PhaseCurve(levels, curve, errors, contrasts, counts, int(reference_gray), int(sign), drift,
-                      tuple(int(i) for i in np.flatnonzero(~keep)), rejected_grays, fitted,
-                      summarize(levels, curve, errors, fitted))
+    run = 1 if sign * data_dir > 0 else -1
+    name = "rising" if run > 0 else "falling"
+    if direction_basis:
+        basis = direction_basis
+    else:
+        basis = "given by the caller" if direction != "unknown" else "from the given sign" if sign_given else "assumed"
+
+    floor = leak.residual_rad if leak is not None else 0.0
+    if disagreement is not None:
+        keep = lv.keep & np.isin(gray, levels)
+        floor = math.hypot(floor, estimator_floor_rad(gray[keep], disagreement[keep]))
+    budget = UncertaintyBudget(levels, pixel[level_ok], scatter[level_ok], drift_std, lv.cyclic_rad[level_ok],
+                               np.full(levels.size, floor), excess, dof,
+                               tuple(int(g) for g in lv.gray[own & level_ok]))
+    errors = budget.combined_rad
+    dips = find_dips(levels, curve, errors, run)
+    for d in dips:
+        warnings.append(f"the curve falls against its direction by {d.depth_rad:.3f} rad ({d.significance:.1f} "
+                        f"sigma) from gray {d.from_gray} to {d.to_gray}; a monotone table cannot follow it there")
+    if drift is None or not drift.scale_coefficients:
+        beta, beta_std = scale_drift_check(levels, curve, errors, t_level)
+        if abs(beta) > SCALE_SIGMAS * beta_std:
+            warnings.append(f"the levels show the curve's scale changing by {beta:+.2%} +- {beta_std:.2%} over the "
+                            f"sweep, which one reference gray cannot remove; measure a second reference gray")
+    fitted = monotone_fit(levels, curve, errors, run) if smooth and levels.size >= 4 else None
+    return PhaseCurve(levels, curve, errors, lv.contrast[level_ok], lv.n[level_ok], int(reference_gray), int(sign),
+                      drift, tuple(int(i) for i in np.flatnonzero(~lv.keep)), rejected_grays, fitted,
+                      summarize(levels, curve, errors, fitted, run, dips), name, basis, budget, leak,
+                      tuple(warnings))
 
 
 def _level_outliers(levels: np.ndarray, phase: np.ndarray, std: np.ndarray, half_window: int = 3) -> np.ndarray:
     """True for levels within OUTLIER_SIGMAS robust deviations of a line through their neighbours.
 
     The worst level is dropped and the rest re-examined, one at a time, so an outlier never condemns the
-    neighbours whose lines it bent (at most a quarter of the levels can go).
+    neighbours whose lines it bent (at most a quarter of the levels can go). Two or more neighbouring levels off
+    together are kept: that is a feature of the curve, such as a dip, which find_dips reports, not a glitch.
     """
     ok = np.ones(levels.size, dtype=bool)
     for _ in range(levels.size // 4):
@@ -296,14 +761,17 @@ def _level_outliers(levels: np.ndarray, phase: np.ndarray, std: np.ndarray, half
         if excess[worst] <= 1:
             break
         ok[idx[worst]] = False
-    return ok
+    bad = ~ok
+    in_run = bad & (np.r_[False, bad[:-1]] | np.r_[bad[1:], False])
+    return ok | in_run
 
 
-def summarize(gray: np.ndarray, phase_rad: np.ndarray, std_rad: np.ndarray, smooth_rad: np.ndarray | None
-              ) -> CurveSummary:
-    """Range, first gray reaching 2 pi, rms deviation from the smooth fit and worst uncertainty of a curve."""
-    reach = np.flatnonzero(phase_rad >= 2 * np.pi)
+def summarize(gray: np.ndarray, phase_rad: np.ndarray, std_rad: np.ndarray, smooth_rad: np.ndarray | None,
+              direction: int = 1, dips: tuple[Dip, ...] = ()) -> CurveSummary:
+    """Range, first gray reaching 2 pi (in the curve's direction), rms deviation from the smooth fit, worst
+    uncertainty and dips of a curve."""
+    reach = np.flatnonzero(direction * phase_rad >= 2 * np.pi)
     worst = int(np.argmax(std_rad))
     rms = float(np.sqrt(np.mean((phase_rad - smooth_rad) ** 2))) if smooth_rad is not None else None
     return CurveSummary(float(phase_rad.max() - phase_rad.min()), int(gray[reach[0]]) if reach.size else None,
-                        rms, float(std_rad[worst]), int(gray[worst]))
+                        rms, float(std_rad[worst]), int(gray[worst]), dips)

@@ -7,6 +7,10 @@ SciPy's PCHIP uses) and, for each target phase, the gray whose phase is nearest 
 
 Targets are ``range_rad * i / levels``, i = 0 .. levels - 1, measured from the phase of the table's first gray, so a
 table for 2 pi wraps seamlessly: the step from the last entry to the first of the next period is one target step.
+
+A falling curve (a nematic panel's phase usually falls as the drive rises) is handled on its negative, which rises;
+the table for it is that table read backwards, so entry i still gives the gray whose phase is target i + const
+(mod 2 pi). The direction, the phase convention and any dips of the measured curve travel with the table.
 """
 
 from __future__ import annotations
@@ -16,6 +20,8 @@ from dataclasses import dataclass
 
 import numpy as np
 from scipy.interpolate import make_smoothing_spline
+
+from analysis.curve import DIRECTIONS, PHASE_CONVENTION, Dip, find_dips, isotonic
 
 TWO_PI = 2 * math.pi
 SPLINE_MIN_POINTS = 5  # the GCV smoothing spline needs at least five samples
@@ -27,8 +33,11 @@ class LookupTable:
 
     ``gray[i]`` is the gray that delays ``target_phase_rad[i] = range_rad * i / levels``. ``window`` is the first and
     last gray of the measured curve the table draws from; ``reach_rad`` the smoothed curve's full span;
-    ``uncertainty_rad`` the RMS measurement std at the table's grays; ``rms_linearity_rad`` the RMS deviation of the
-    measured (unsmoothed) curve through the table from a linear ramp.
+    ``uncertainty_rad`` the RMS measurement std at the table's grays; ``rms_linearity_rad`` and
+    ``worst_linearity_rad`` the RMS and largest deviation of the measured (unsmoothed) curve through the table from
+    a linear ramp, which a dip the smoothing flattened shows and the quantisation figures do not. ``direction`` is
+    how the curve runs ("rising" or "falling"), ``dips`` the measured curve's falls against it (see
+    analysis.curve.find_dips), ``phase_convention`` what "phase" means.
     """
 
     gray: np.ndarray
@@ -44,11 +53,47 @@ class LookupTable:
     uncertainty_rad: float
     notes: tuple[str, ...]
     warnings: tuple[str, ...]
+    direction: str = "rising"
+    worst_linearity_rad: float = 0.0
+    dips: tuple[Dip, ...] = ()
+    phase_convention: str = PHASE_CONVENTION
 
     @property
     def levels(self) -> int:
         """Number of entries."""
         return int(self.gray.size)
+
+    @property
+    def worst_error_rad(self) -> float:
+        """Largest phase error (rad) of the table: quantisation on the smooth curve or deviation of the measured one."""
+        return max(self.worst_quantisation_rad, self.worst_linearity_rad)
+
+    @property
+    def short_of_two_pi(self) -> bool:
+        """True when the table spans less than 2 pi (it then does not wrap)."""
+        return self.range_rad < TWO_PI * (1 - 1e-9)
+
+    @property
+    def range_label(self) -> str:
+        """The range in multiples of pi for a file name, e.g. "2pi" or "1.10pi"."""
+        return "2pi" if not self.short_of_two_pi else f"{self.range_rad / math.pi:.2f}pi"
+
+    def metadata_fields(self) -> dict:
+        """JSON-ready fields lut.json needs beyond the table's figures: direction, convention, range, dips."""
+        return {"direction": self.direction, "phase_convention": self.phase_convention,
+                "short_of_two_pi": self.short_of_two_pi, "range_label": self.range_label,
+                "header": self.header_line(), "worst_linearity_rad": self.worst_linearity_rad,
+                "worst_error_rad": self.worst_error_rad, "dips": [d.summary() for d in self.dips]}
+
+    def header_line(self) -> str:
+        """One line that says what the table holds (a text file writes it as a comment above the grays)."""
+        step = self.range_rad / self.levels
+        span = (f"wanted phase 0..{self.range_rad:.4f} rad ({self.range_rad / math.pi:.2f} pi)"
+                + (", SHORT OF 2 pi: phases above it cannot be made, the table does not wrap"
+                   if self.short_of_two_pi else ", wrapping"))
+        return (f"fringecal table, {self.levels} entries, {span}; entry i gives the gray whose phase is "
+                f"i * {step:.6f} rad + const{'' if self.short_of_two_pi else ' (mod 2 pi)'}; {self.direction} curve"
+                + (f"; {len(self.dips)} dip(s) in the measured curve" if self.dips else ""))
 
 
 def monotone_cubic(x: np.ndarray, y: np.ndarray, x_new: np.ndarray) -> np.ndarray:
@@ -90,22 +135,6 @@ def _end_slope(h0: float, h1: float, s0: float, s1: float) -> float:
     return d
 
 
-def isotonic(y: np.ndarray, weight: np.ndarray) -> np.ndarray:
-    """Weighted least-squares non-decreasing fit to ``y`` (pool-adjacent-violators)."""
-    means, weights, counts = [], [], []
-    for value, w in zip(np.asarray(y, float), np.asarray(weight, float)):
-        means.append(value)
-        weights.append(w)
-        counts.append(1)
-        while len(means) > 1 and means[-2] > means[-1]:
-            w_sum = weights[-2] + weights[-1]
-            means[-2] = (means[-2] * weights[-2] + means[-1] * weights[-1]) / w_sum
-            weights[-2] = w_sum
-            counts[-2] += counts[-1]
-            del means[-1], weights[-1], counts[-1]
-    return np.repeat(means, counts)
-
-
 def smooth_curve(gray: np.ndarray, phase_rad: np.ndarray, phase_std_rad: np.ndarray | None = None) -> np.ndarray:
     """Smoothed, non-decreasing phase (rad) at the measured grays.
 
@@ -126,8 +155,8 @@ def smooth_curve(gray: np.ndarray, phase_rad: np.ndarray, phase_std_rad: np.ndar
     return isotonic(smooth, weight)
 
 
-def validate_curve(gray: np.ndarray, phase_rad: np.ndarray, bit_depth: int) -> None:
-    """Raise ValueError naming the field if a measured curve cannot make a table."""
+def validate_curve(gray: np.ndarray, phase_rad: np.ndarray, bit_depth: int, direction: str | None = None) -> None:
+    """Raise ValueError naming the field if a measured curve cannot make a table (or runs against ``direction``)."""
     gray, phase = np.asarray(gray), np.asarray(phase_rad, float)
     gmax = 2**bit_depth - 1
     if gray.ndim != 1 or gray.shape != phase.shape:
@@ -140,29 +169,39 @@ def validate_curve(gray: np.ndarray, phase_rad: np.ndarray, bit_depth: int) -> N
         raise ValueError(f"gray: expected integer gray levels in [0, {gmax}] for a {bit_depth}-bit panel")
     if np.any(np.diff(gray) <= 0):
         raise ValueError("gray: expected strictly ascending gray levels")
-    if phase[-1] <= phase[0]:
-        raise ValueError(f"phase_rad: expected a rising curve, got {phase[0]:.3f} rad at the first gray and "
-                         f"{phase[-1]:.3f} rad at the last")
+    if direction is not None and direction not in DIRECTIONS:
+        raise ValueError(f"direction: expected rising or falling, got {direction!r}")
+    if phase[-1] == phase[0] or direction is not None and DIRECTIONS[direction] * (phase[-1] - phase[0]) < 0:
+        raise ValueError(f"phase_rad: expected a {direction or 'rising or falling'} curve, got {phase[0]:.3f} rad at "
+                         f"the first gray and {phase[-1]:.3f} rad at the last")
 
 
 def build_lut(gray: np.ndarray, phase_rad: np.ndarray, phase_std_rad: np.ndarray | None = None, *,
-              bit_depth: int = 8, levels: int | None = None, range_rad: float | None = None) -> LookupTable:
+              bit_depth: int = 8, levels: int | None = None, range_rad: float | None = None,
+              direction: str | None = None) -> LookupTable:
     """Build the table for ``levels`` targets over [0, range_rad) (defaults: 2**bit_depth levels, 2 pi).
+
+    Pass the measured curve (not a smoothed one: the table smooths it, and judges its error and its dips on what
+    was measured) with its std. ``direction`` ("rising" or "falling") defaults to the way the curve runs from its
+    first gray to its last; a curve running the other way is refused. Dips need the std to be judged.
 
     A panel reaching more than the range gets the window of grays that spans it with the smallest RMS quantisation
     error: that error grows both where the curve is steep (coarse resolution) and where it is uneven (poor
     linearity), so one figure weighs both. A panel reaching less gets a table for its reach; an explicit
     ``range_rad`` beyond the reach is kept, its top targets clipped to the last gray, with a note.
     """
-    validate_curve(gray, phase_rad, bit_depth)
+    validate_curve(gray, phase_rad, bit_depth, direction)
     levels = 2**bit_depth if levels is None else int(levels)
     if levels < 2:
         raise ValueError(f"levels: expected at least 2 table entries, got {levels}")
     if range_rad is not None and not (math.isfinite(range_rad) and range_rad > 0):
         raise ValueError(f"range_rad: expected a phase range > 0 rad, got {range_rad}")
     gray = np.asarray(gray).astype(np.int64)
-    phase = np.asarray(phase_rad, float)
+    run = 1 if np.asarray(phase_rad, float)[-1] > np.asarray(phase_rad, float)[0] else -1
+    # The table is built on run * phase, which rises, and read backwards at the end for a falling curve.
+    phase = run * np.asarray(phase_rad, float)
     std = None if phase_std_rad is None else np.asarray(phase_std_rad, float)
+    dips = find_dips(gray, phase, std) if std is not None and np.all(std > 0) else ()
 
     all_grays = np.arange(gray[0], gray[-1] + 1)
     # Interpolating an isotonic fit keeps it non-decreasing; accumulate guards the last ulp.
@@ -197,14 +236,21 @@ def build_lut(gray: np.ndarray, phase_rad: np.ndarray, phase_std_rad: np.ndarray
                      f"{window[0]}..{window[1]} of {gray[0]}..{gray[-1]}, the window spanning "
                      f"{range_rad:.3f} rad with the smallest RMS quantisation error")
 
+    for d in dips:
+        warnings.append(f"the measured curve falls against its direction by {d.depth_rad:.3f} rad "
+                        f"({d.significance:.1f} sigma) from gray {d.from_gray} to {d.to_gray}; the table follows the "
+                        f"smoothed curve there")
     measured = monotone_cubic(gray, phase, table) - curve[s] - targets
     uncertainty = 0.0 if std is None else float(np.sqrt(np.mean(np.interp(table, gray, std) ** 2)))
+    if run < 0:
+        table = table[::-1]
     return LookupTable(
         gray=table.astype(np.int64), target_phase_rad=targets, range_rad=float(range_rad), bit_depth=bit_depth,
         window=window, reach_rad=reach, distinct_grays=int(np.unique(table).size),
         worst_quantisation_rad=float(np.abs(error).max()), rms_quantisation_rad=rms,
         rms_linearity_rad=float(np.std(measured)), uncertainty_rad=uncertainty, notes=tuple(notes),
-        warnings=tuple(warnings))
+        warnings=tuple(warnings), direction="rising" if run > 0 else "falling",
+        worst_linearity_rad=float(np.abs(measured - measured.mean()).max()), dips=dips)
 
 
 def _nearest(curve: np.ndarray, targets: np.ndarray, start: int) -> np.ndarray:

@@ -77,7 +77,7 @@ def test_lut_beyond_reach_warns(tmp_path, phase_csv, capsys):
     (HEADER + "0,0.0,0.01,0.9,2\n1.5,0.1,0.01,0.9,2\n", "column gray"),
     (HEADER + "0,0.0,0.01,0.9,2\n1,0.1,0.01,0.9\n", "line 3"),
     (HEADER + "0,0.0,0.01,0.9,2\n1,nan,0.01,0.9,2\n", "column phase_rad"),
-    (HEADER + "0,0.0,0.01,0.9,2\n1,-0.5,0.01,0.9,2\n", "rising"),
+    (HEADER + "0,0.0,0.01,0.9,2\n1,0.0,0.01,0.9,2\n", "rising or falling"),
     (HEADER + "5,0.0,0.01,0.9,2\n3,0.5,0.01,0.9,2\n", "ascending"),
     (HEADER + "0,0.0,0.01,0.9,2\n300,0.5,0.01,0.9,2\n", "gray"),
 ])

@@ -1,0 +1,209 @@
+"""Cyclic phase error (rad) from a constant leak phasor at the fringe carrier: fit, significance and correction.
+
+A frame's complex fringe amplitude is z = a(g) exp(i phi) + L: the mirror beam against the first order, plus light
+at the same carrier that does not pass through the mirror gray (the grating's zero order, light diffracted past the
+split line, a coherent cover-glass ghost, the polarisation component the liquid crystal does not modulate). The
+measured phase arg z then errs by arg(1 + (L / a) exp(-i phi)), periodic in phi with period 2 pi and at most
+arcsin(|L| / a) rad. As in Heydemann's correction (Appl. Opt. 20, 3382, 1981) the points z lie on a circle, here
+of radius a(g), a low-order polynomial in gray, about the centre L; the fit minimises the weighted radial distances
+||z - L| - a(g)| (the geometric fit; each point's phase is free), started from Kasa's algebraic fit (IEEE Trans.
+Instrum. Meas. 25, 8, 1976). The corrected phase is arg(z - L).
+
+Which phasor rotates with what: the fringe is the mirror beam M against the first order F, z ~ M F*. The zero order
+and light past the split line come from the grating half like F, so a piston or tilt of the panel moves them with
+F; a cover-glass ghost is fixed to the glass. The drift the reference visits measure is that of M relative to F.
+So L is fixed in the frame of the fringe carrier (to first order: a ghost turns against F by the grating half's own
+piston, about half of a tilt's fringe shift for a tilt about the panel's centre), while the drift moves each point
+along the circle, not off it. The fit therefore takes the raw z, before any drift correction: de-rotating z by the
+drift would smear L over an arc. A slow change of L itself (the zero order's strength follows the grating's phase
+step as the panel warms) is left in the residual.
+
+The circle is told from a smooth amplitude change only when the phases cover most of the circle: with less than
+MIN_ARC_RAD the amplitude is held constant (the only radius a short arc pins down), the fit is reported but never
+applied, and the possible error it describes is carried as an uncertainty instead.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+import numpy as np
+from scipy import optimize
+
+MIN_ARC_RAD = 1.5 * math.pi   # phases must cover this much of the circle before a correction is applied
+SIGNIFICANCE = 3.0            # the leak is removed only when it lies this many standard errors from zero
+MAX_AMPLITUDE_DEGREE = 3      # a(g) is a polynomial in gray of at most this degree
+AMPLITUDE_TERM_CHI2 = 9.0     # a higher amplitude degree is kept only if it lowers chi-square this much
+RESIDUAL_HARMONICS = (2, 3)   # radial harmonics of the phase a single leak cannot make; their size is the floor
+
+
+@dataclass(frozen=True, eq=False)
+class LeakFit:
+    """A fitted leak phasor and the phase correction it implies for each input point.
+
+    ``ratio`` is |L| / a with a the fitted amplitude averaged over the points, ``leak_phase_rad`` arg L (the camera
+    frame of the carrier), each with its standard uncertainty. ``significance`` is sqrt(L^T C^-1 L) with C the
+    covariance of (Re L, Im L): the distance of L from zero in standard errors. ``correction_rad`` is what to add to
+    each point's phase (zero where not applied); ``correction_std_rad`` its standard uncertainty, or, where the
+    correction is not applied, the cyclic error left in (the would-be correction and its uncertainty combined).
+    ``residual_rad`` is the RMS phase error of the distortion the circle model leaves (harmonics 2 and 3 of the
+    radial residual, noise removed), a systematic floor. ``chi2_per_dof`` > 1 inflated the covariance by itself.
+    """
+
+    leak: complex
+    leak_covariance: np.ndarray
+    ratio: float
+    ratio_std: float
+    leak_phase_rad: float
+    leak_phase_std_rad: float
+    significance: float
+    applied: bool
+    arc_rad: float
+    amplitude_degree: int
+    chi2_per_dof: float
+    residual_rad: float
+    correction_rad: np.ndarray
+    correction_std_rad: np.ndarray
+    reason: str
+
+    @property
+    def peak_error_rad(self) -> float:
+        """Largest phase error (rad) the fitted leak makes before correction: arcsin(|L| / a)."""
+        return math.asin(min(self.ratio, 1.0))
+
+    def summary(self) -> dict:
+        """JSON-ready figures of the fit (ratio, phase and errors in rad)."""
+        return {"applied": self.applied, "reason": self.reason, "ratio": self.ratio, "ratio_std": self.ratio_std,
+                "leak_phase_rad": self.leak_phase_rad, "leak_phase_std_rad": self.leak_phase_std_rad,
+                "significance_sigma": self.significance, "peak_error_rad": self.peak_error_rad,
+                "arc_rad": self.arc_rad, "amplitude_degree": self.amplitude_degree,
+                "chi2_per_dof": self.chi2_per_dof, "residual_rad": self.residual_rad}
+
+
+def leak_phase_error_rad(phase_rad, ratio: float, leak_phase_rad: float) -> np.ndarray:
+    """Phase error (rad) a leak of relative amplitude ``ratio`` and phase ``leak_phase_rad`` makes at ``phase_rad``."""
+    phase = np.asarray(phase_rad, float)
+    return np.angle(1 + ratio * np.exp(1j * (leak_phase_rad - phase)))
+
+
+def arc_covered_rad(angle_rad: np.ndarray) -> float:
+    """Part of the circle (rad) the angles cover: 2 pi less the widest gap between neighbours."""
+    a = np.sort(np.mod(np.asarray(angle_rad, float), 2 * math.pi))
+    if a.size < 2:
+        return 0.0
+    gaps = np.diff(np.r_[a, a[0] + 2 * math.pi])
+    return float(2 * math.pi - gaps.max())
+
+
+def kasa_centre(z: np.ndarray) -> complex:
+    """Centre of the circle through points z by Kasa's algebraic fit (|z|^2 = 2 Re(z c*) + d, linear least squares)."""
+    design = np.column_stack([2 * z.real, 2 * z.imag, np.ones(z.size)])
+    sol = np.linalg.lstsq(design, np.abs(z) ** 2, rcond=None)[0]
+    return complex(sol[0], sol[1])
+
+
+def fit_leak(gray, z, z_std, *, significance: float = SIGNIFICANCE) -> LeakFit:
+    """Fit the leak phasor L and a smooth amplitude a(g) to complex fringe amplitudes z (one per frame or level).
+
+    ``z_std`` is each point's standard uncertainty per component, in the unit of z (for an estimator that states
+    only a phase std, pass std_rad * |z|). The amplitude's degree goes up from 0 while a term lowers chi-square by
+    AMPLITUDE_TERM_CHI2; the covariance is scaled by chi-square per degree of freedom when that exceeds 1, so
+    scatter the stated stds miss (laser power, vibration off the circle) widens the errors rather than hiding.
+    The correction is applied when L lies ``significance`` standard errors or more from zero and the phases cover
+    MIN_ARC_RAD; the reason is recorded either way.
+    """
+    g = np.asarray(gray, float)
+    z = np.asarray(z, complex)
+    sigma = np.maximum(np.asarray(z_std, float), 1e-12 * max(float(np.abs(z).max()), 1e-300))
+    if not (g.shape == z.shape == sigma.shape) or z.ndim != 1:
+        raise ValueError("gray, z, z_std: expected three 1-D arrays of equal length")
+    if z.size < 2 * MAX_AMPLITUDE_DEGREE + 4:
+        raise ValueError(f"z: expected at least {2 * MAX_AMPLITUDE_DEGREE + 4} points for a leak fit, got {z.size}")
+    span = max(float(np.ptp(g)), 1e-9)
+    x = 2 * (g - g.min()) / span - 1  # gray mapped onto [-1, 1] keeps the amplitude polynomial well conditioned
+
+    start = kasa_centre(z)
+    if not np.isfinite(start) or abs(start) > 0.5 * float(np.median(np.abs(z))):
+        start = 0j  # a leak as large as half the amplitude is no leak but a broken measurement; start at zero
+    arc = arc_covered_rad(np.angle(z - start))
+    max_degree = MAX_AMPLITUDE_DEGREE if arc >= MIN_ARC_RAD else 0
+
+    def solve(degree: int, centre: complex):
+        powers = np.vander(x, degree + 1)
+
+        def residual(p):
+            return (np.abs(z - complex(p[0], p[1])) - powers @ p[2:]) / sigma
+
+        radius = np.abs(z - centre)
+        p0 = np.r_[centre.real, centre.imag, np.linalg.lstsq(powers / sigma[:, None], radius / sigma, rcond=None)[0]]
+        fit = optimize.least_squares(residual, p0, method="lm", x_scale="jac")
+        return fit.x, fit.jac, float(np.sum(fit.fun**2)), powers
+
+    params, jac, chi2, powers = solve(0, start)
+    degree = 0
+    for trial_degree in range(1, max_degree + 1):
+        trial = solve(trial_degree, complex(params[0], params[1]))
+        if chi2 - trial[2] < AMPLITUDE_TERM_CHI2:
+            break
+        params, jac, chi2, powers = trial
+        degree = trial_degree
+    dof = max(z.size - params.size, 1)
+    chi2_dof = chi2 / dof
+    cov = np.linalg.pinv(jac.T @ jac) * max(chi2_dof, 1.0)
+    leak = complex(params[0], params[1])
+    amplitude = powers @ params[2:]
+    mean_amp = float(amplitude.mean())
+    arc = arc_covered_rad(np.angle(z - leak))
+
+    cov_l = cov[:2, :2]
+    lvec = np.array([leak.real, leak.imag])
+    signif = float(math.sqrt(max(lvec @ np.linalg.pinv(cov_l) @ lvec, 0.0)))
+    mod = abs(leak)
+    d_ratio = np.r_[lvec / max(mod, 1e-300) / mean_amp, -mod / mean_amp**2 * powers.mean(axis=0)]
+    ratio_std = float(math.sqrt(max(d_ratio @ cov @ d_ratio, 0.0)))
+    d_phase = np.array([-leak.imag, leak.real]) / max(mod**2, 1e-300)
+    phase_std = float(math.sqrt(max(d_phase @ cov_l @ d_phase, 0.0))) if mod > 0 else math.pi
+
+    # Gradient of arg(z - L) with respect to (Re L, Im L): (Im w, -Re w) / |w|^2, w = z - L.
+    w = z - leak
+    grad = np.column_stack([w.imag, -w.real]) / np.abs(w)[:, None] ** 2
+    would_be = np.angle(w) - np.angle(z)
+    would_be = np.angle(np.exp(1j * would_be))
+    corr_std = np.sqrt(np.maximum(np.einsum("ij,jk,ik->i", grad, cov_l, grad), 0.0))
+
+    if arc < MIN_ARC_RAD:
+        applied = False
+        reason = (f"not applied: the phases cover {arc:.2f} rad of the circle, a leak needs {MIN_ARC_RAD:.2f} rad "
+                  f"to be told from a change of fringe amplitude with gray")
+    elif signif < significance:
+        applied = False
+        reason = f"not applied: leak {signif:.1f} standard errors from zero (threshold {significance:g})"
+    else:
+        applied = True
+        reason = f"applied: leak {signif:.1f} standard errors from zero"
+    if applied:
+        correction, correction_std = would_be, corr_std
+    else:
+        correction, correction_std = np.zeros(z.size), np.hypot(would_be, corr_std)
+
+    residual = _harmonic_floor(np.angle(w), (np.abs(w) - amplitude) / amplitude, sigma / amplitude,
+                               max(chi2_dof, 1.0))
+    return LeakFit(leak, cov_l, mod / mean_amp, ratio_std, float(np.angle(leak)), phase_std, signif, applied, arc,
+                   degree, chi2_dof, residual, correction, correction_std, reason)
+
+
+def _harmonic_floor(theta: np.ndarray, rel_resid: np.ndarray, rel_sigma: np.ndarray, inflation: float) -> float:
+    """RMS phase error (rad) of the radial residual's harmonics RESIDUAL_HARMONICS, less what noise alone gives.
+
+    A distortion of the circle into an ellipse (unequal gains) or a three-lobed shape moves points along the circle
+    by as much as across it, so the radial harmonics, which the fit can see, size the phase errors it cannot.
+    """
+    cols = []
+    for m in RESIDUAL_HARMONICS:
+        cols += [np.cos(m * theta), np.sin(m * theta)]
+    design = np.column_stack(cols) / rel_sigma[:, None]
+    coef, *_ = np.linalg.lstsq(design, rel_resid / rel_sigma, rcond=None)
+    cov = np.linalg.pinv(design.T @ design) * inflation
+    power = float(np.sum(coef**2) - np.trace(cov))
+    return math.sqrt(max(power, 0.0) / 2)
