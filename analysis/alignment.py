@@ -8,6 +8,7 @@ import numpy as np
 
 from analysis.band import find_band
 from analysis.carrier import NoFringesError, find_carrier
+from analysis.patterns import Rect
 
 GOOD_CONTRAST = 0.5       # below this the fringes are usable but the bench is not aligned (common practice)
 POOR_CONTRAST = 0.2
@@ -26,6 +27,7 @@ class AlignmentFigures:
     angle_deg: float | None
     period_spread: float | None   # rms local-period deviation across the band, fraction of the period
     fringe_count: float | None
+    band: Rect | None = None      # the fringe band (image px)
 
 
 def alignment_figures(image: np.ndarray, full_scale: int, dark_adu: float = 0.0) -> AlignmentFigures:
@@ -39,7 +41,7 @@ def alignment_figures(image: np.ndarray, full_scale: int, dark_adu: float = 0.0)
         return AlignmentFigures(peak, saturated, 0.0, None, None, None, None)
     c = survey.carrier
     return AlignmentFigures(peak, saturated, survey.contrast, c.period_px, c.angle_deg, survey.period_spread,
-                            survey.fringe_count)
+                            survey.fringe_count, survey.band)
 
 
 def hint(fig: AlignmentFigures) -> str:

@@ -39,6 +39,8 @@ class Modulator:
     rgb_shift_bits: tuple[int, int, int] = spec((0, 0, 0), lo=-15, hi=15,
                                                 doc="right shift of the gray into red, green, blue (negative: left); "
                                                     "each channel keeps its low 8 bits")
+    backend: str = spec("window", doc="window (a full-screen pattern window on modulator.display), or module:Class "
+                                      "for a panel driven by its maker's library")
 
 
 @dataclass(frozen=True)
@@ -52,7 +54,7 @@ class Laser:
 
 @dataclass(frozen=True)
 class Camera:
-    backend: str = spec("sim", doc="sim, opencv, replay, or module:Class for a lab's own backend")
+    backend: str = spec("sim", doc="sim, opencv, replay, genicam, or module:Class for a lab's own backend")
     width_px: int = spec(1280, lo=16, hi=16384, doc="sensor width")
     height_px: int = spec(1024, lo=16, hi=16384, doc="sensor height")
     pitch_um: float = spec(4.8, lo=0.5, hi=50.0, doc="sensor pixel pitch")
@@ -60,10 +62,13 @@ class Camera:
     exposure_s: float = spec(0.0015, lo=1e-6, hi=10.0, doc="exposure time")
     gain_db: float = spec(0.0, lo=0.0, hi=48.0, doc="analogue gain")
     device: str = spec("", doc="opencv: device index, file or URL ('': device 0); replay: image folder; "
+                               "genicam: serial, user id or address ('': the only camera); "
                                "module:Class: handed to the class")
     discard_frames: int = spec(0, lo=0, hi=1000,
                                doc="frames thrown away after every pattern change (for timestamps off the bench clock)")
     grab_timeout_s: float = spec(2.0, lo=0.01, hi=600.0, doc="longest wait for one frame")
+    trigger: str = spec("free-run", choices=("free-run", "software"),
+                        doc="software: one triggered exposure per needed frame, after the settle time")
 
 
 @dataclass(frozen=True)
@@ -137,6 +142,14 @@ class Noise:
     full_well_e: float = spec(10500.0, lo=10.0, hi=1e7, doc="pixel full-well capacity")
     optical_density: float = spec(3.0, lo=0.0, hi=12.0, doc="neutral-density attenuation before the sensor")
     stray_light: float = spec(0.003, lo=0.0, hi=1.0, doc="uniform background as a fraction of the peak intensity")
+    prnu: float = spec(0.0, lo=0.0, hi=0.2,
+                       doc="photo-response non-uniformity: relative gain std over pixels (EMVA 1288; ~0.005 typical)")
+    dsnu_e: float = spec(0.0, lo=0.0, hi=1000.0,
+                         doc="dark-signal non-uniformity: offset std over pixels in e- (EMVA 1288; ~1-3 e- typical)")
+    dark_current_e_per_s: float = spec(0.0, lo=0.0, hi=1e6,
+                                       doc="mean dark current (EMVA 1288; ~1-50 e-/s for CMOS at room temperature)")
+    hot_pixels: int = spec(0, lo=0, hi=100000, doc="pixels with a much larger dark current (fixed per camera seed)")
+    hot_pixel_e_per_s: float = spec(2e4, lo=0.0, hi=1e8, doc="dark current of a hot pixel")
 
 
 @dataclass(frozen=True)
@@ -151,6 +164,31 @@ class Timing:
     flicker_hz: float = spec(120.0, lo=0.0, hi=100000.0, doc="ripple frequency")
     warmup_k: float = spec(0.0, lo=0.0, hi=30.0, doc="panel temperature rise still to come when the bench starts")
     warmup_tau_s: float = spec(600.0, lo=1.0, hi=36000.0, doc="time constant of the panel's warm-up")
+    warming_k_per_min: float = spec(0.0, lo=-30.0, hi=30.0,
+                                    doc="steady panel temperature ramp from the bench's time zero (the demo bench "
+                                        "sweeps from about 6 s to 39 s)")
+
+
+@dataclass(frozen=True)
+class CoverGlass:
+    thickness_um: float = spec(700.0, lo=10.0, hi=10000.0, doc="cover-glass thickness (0.5-1.1 mm typical, from memory)")
+    index: float = spec(1.5, lo=1.0, hi=4.0, doc="cover-glass refractive index (borosilicate ~1.5 in the near IR)")
+    path_per_k: float = spec(1e-5, lo=-1e-3, hi=1e-3,
+                             doc="relative change of the glass's optical path per kelvin, dn/dT + n alpha "
+                                 "(~1e-5/K for borosilicate, from memory)")
+    front_reflectance: float = spec(0.0, lo=0.0, hi=0.1,
+                                    doc="intensity reflectance of the front surface (AR coated: 0.001-0.005, "
+                                        "common practice)")
+    front_wedge_urad: tuple[float, float] = spec((0.0, 0.0), lo=-1e5, hi=1e5,
+                                                 doc="front-surface tilt from the panel plane (x, y)")
+    inner_reflectance: float = spec(0.0, lo=0.0, hi=0.1,
+                                    doc="intensity reflectance of the inner glass/ITO/LC interface (~0.002-0.01, "
+                                        "from memory; the largest cover-glass ghost)")
+    inner_wedge_urad: tuple[float, float] = spec((0.0, 0.0), lo=-1e5, hi=1e5,
+                                                 doc="inner-surface tilt from the panel plane (x, y)")
+    inner_phase_rad: float = spec(1.0, lo=-100.0, hi=100.0,
+                                  doc="phase of the inner reflection relative to the panel's light at zero "
+                                      "retardance (set by the cell's ordinary path; unknown on a real panel)")
 
 
 @dataclass(frozen=True)
@@ -224,6 +262,7 @@ class Simulator:
     beam: Beam = field(default_factory=Beam)
     noise: Noise = field(default_factory=Noise)
     timing: Timing = field(default_factory=Timing)
+    cover_glass: CoverGlass = field(default_factory=CoverGlass)
     faults: Faults = field(default_factory=Faults)
 
 
@@ -441,9 +480,11 @@ def _cross_check(cfg: Config) -> None:
     if r.clearing_c <= r.temperature_c:
         fail("simulator.response.temperature_c", f"a temperature below the clearing point {r.clearing_c} C",
              r.temperature_c)
+    if cfg.modulator.backend != "window" and ":" not in cfg.modulator.backend:
+        fail("modulator.backend", "window, or module:Class", cfg.modulator.backend)
     backend = cfg.camera.backend
-    if backend not in ("sim", "opencv", "replay") and ":" not in backend:
-        fail("camera.backend", "sim, opencv, replay, or module:Class", backend)
+    if backend not in ("sim", "opencv", "replay", "genicam") and ":" not in backend:
+        fail("camera.backend", "sim, opencv, replay, genicam, or module:Class", backend)
 
 
 def describe(cls=Config, prefix="") -> list[tuple[str, str, str]]:

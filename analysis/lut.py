@@ -178,7 +178,7 @@ def validate_curve(gray: np.ndarray, phase_rad: np.ndarray, bit_depth: int, dire
 
 def build_lut(gray: np.ndarray, phase_rad: np.ndarray, phase_std_rad: np.ndarray | None = None, *,
               bit_depth: int = 8, levels: int | None = None, range_rad: float | None = None,
-              direction: str | None = None) -> LookupTable:
+              direction: str | None = None, smooth: bool = True) -> LookupTable:
     """Build the table for ``levels`` targets over [0, range_rad) (defaults: 2**bit_depth levels, 2 pi).
 
     Pass the measured curve (not a smoothed one: the table smooths it, and judges its error and its dips on what
@@ -188,7 +188,8 @@ def build_lut(gray: np.ndarray, phase_rad: np.ndarray, phase_std_rad: np.ndarray
     A panel reaching more than the range gets the window of grays that spans it with the smallest RMS quantisation
     error: that error grows both where the curve is steep (coarse resolution) and where it is uneven (poor
     linearity), so one figure weighs both. A panel reaching less gets a table for its reach; an explicit
-    ``range_rad`` beyond the reach is kept, its top targets clipped to the last gray, with a note.
+    ``range_rad`` beyond the reach is kept, its top targets clipped to the last gray, with a note. ``smooth=False``
+    takes a curve that is already a smooth monotone model at every gray (an adaptive sweep's) as it is.
     """
     validate_curve(gray, phase_rad, bit_depth, direction)
     levels = 2**bit_depth if levels is None else int(levels)
@@ -205,7 +206,8 @@ def build_lut(gray: np.ndarray, phase_rad: np.ndarray, phase_std_rad: np.ndarray
 
     all_grays = np.arange(gray[0], gray[-1] + 1)
     # Interpolating an isotonic fit keeps it non-decreasing; accumulate guards the last ulp.
-    curve = np.maximum.accumulate(monotone_cubic(gray, smooth_curve(gray, phase, std), all_grays))
+    smoothed = smooth_curve(gray, phase, std) if smooth else phase
+    curve = np.maximum.accumulate(monotone_cubic(gray, smoothed, all_grays))
     reach = float(curve[-1] - curve[0])
     notes, warnings = [], []
     if range_rad is None:

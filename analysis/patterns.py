@@ -75,6 +75,20 @@ def dtype_for(bit_depth: int) -> type:
     return np.uint8 if bit_depth <= 8 else np.uint16
 
 
+def check_panel_pattern(pattern, width_px: int, height_px: int, bit_depth: int, who: str = "screen") -> np.ndarray:
+    """``pattern`` as an array if it is a ``height_px`` x ``width_px`` image of integer gray levels of ``bit_depth``
+    bits; ValueError naming ``who`` and what was expected otherwise. Every panel backend checks with this."""
+    pattern = np.asarray(pattern)
+    if pattern.shape != (height_px, width_px):
+        raise ValueError(f"{who}: expected a {height_px}x{width_px} pattern (rows x columns), got {pattern.shape}")
+    if pattern.dtype.kind not in "ui":
+        raise ValueError(f"{who}: expected integer gray levels, got {pattern.dtype}")
+    if pattern.size and (pattern.min() < 0 or pattern.max() >= 2**bit_depth):
+        raise ValueError(f"{who}: gray levels must lie in [0, {2**bit_depth - 1}] for a {bit_depth}-bit panel, "
+                         f"got {pattern.min()}..{pattern.max()}")
+    return pattern
+
+
 def _check_gray(name: str, value: int, bit_depth: int) -> None:
     gmax = 2**bit_depth - 1
     if not 0 <= int(value) <= gmax or int(value) != value:

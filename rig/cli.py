@@ -21,21 +21,36 @@ Every command that needs a bench takes --sim to use the built-in simulated bench
 Without --config, --sim commands use the demo bench configs/tweezers-1064.toml.
 """
 
-EPILOG = """\
-a typical session:
-  fringecal plan --config my-bench.toml            distances and grating period before moving a mount
-  fringecal run --sim --yes                        the whole calibration, here on the simulated bench
+# The first day on a real bench, in order; README's "First time on a real bench" gives the same steps.
+FIRST_BENCH = (
+    ("fringecal screens", "find the panel's display; --check N verifies it pixel for pixel"),
+    ("fringecal new-bench --out bench.toml", "a starter config from a few questions (CHANGE marks what to edit)"),
+    ("fringecal preflight --config bench.toml", "display, camera, serial parts and geometry, before any light"),
+    ("fringecal plan --config bench.toml", "the distance and grating period before moving a mount"),
+    ("fringecal align --config bench.toml", "live contrast, exposure and fringes while you align"),
+    ("fringecal timing --config bench.toml", "settle time and frames to discard, for the config"),
+    ("fringecal run --config bench.toml", "the whole calibration (laser-safety notice first)"),
+    ("fringecal verify --lut runs/<date-time>/lut --config bench.toml",
+     "check the table; lut/lut.npy is what hologram code loads"),
+)
+
+EPILOG = "first time on a real bench (README: \"First time on a real bench\"):\n" + "".join(
+    f"  {i}. {command}\n       {what}\n" for i, (command, what) in enumerate(FIRST_BENCH, 1)) + """
+on the simulated bench, or with data from elsewhere:
+  fringecal run --sim                              the whole calibration, nothing lit
   fringecal sweep --resume runs/20261201-101500    finish a sweep that was interrupted
   fringecal analyze my-images/ --out result/       a phase curve from images taken with other software
   fringecal lut result/phase.csv --out table/      the lookup table in five formats
-  fringecal preview --sim --mirror-gray 80 --out frame.png --view frame-view.png
 """
+
+# --config as most bench commands take it; a command whose config means something else says so in register()
+CONFIG_HELP = "bench config (TOML); needed without --sim; with --sim the 1064 nm demo bench by default"
 
 
 # The commands in the order `fringecal --help` lists them; each module's register(command) adds its subparser.
 COMMAND_MODULES: tuple[str, ...] = tuple(f"rig.commands.{name}" for name in (
-    "preview", "sim_truth", "tune", "sweep", "run", "map", "align", "flicker", "analyze", "lut", "pattern", "plan",
-    "compare", "screens", "timing", "report", "verify",
+    "new_bench", "preflight", "preview", "sim_truth", "tune", "sweep", "run", "map", "align", "flicker", "analyze",
+    "lut", "pattern", "plan", "compare", "screens", "timing", "report", "verify", "cameras",
 ))
 
 
@@ -45,10 +60,12 @@ def build_parser() -> argparse.ArgumentParser:
     parser.add_argument("--version", action="version", version=f"fringecal {__version__}")
     sub = parser.add_subparsers(dest="command", metavar="COMMAND")
 
-    def command(name, func, help_text):
+    def command(name, func, help_text, config: str | None = CONFIG_HELP):
+        """Add a subcommand; ``config`` is its --config help (None: the command reads no config)."""
         p = sub.add_parser(name, help=help_text, description=func.__doc__)
         p.set_defaults(func=func)
-        p.add_argument("--config", metavar="FILE", help="bench config (TOML); default with --sim: the 1064 nm demo")
+        if config is not None:
+            p.add_argument("--config", metavar="FILE", help=config)
         return p
 
     for module in COMMAND_MODULES:

@@ -2,10 +2,12 @@
 
 from __future__ import annotations
 
+import math
+
 import numpy as np
 
 from analysis.frame import Frame
-from analysis.patterns import Rect
+from analysis.patterns import Rect, check_panel_pattern, dtype_for
 from simulators.bench import Bench
 
 
@@ -17,22 +19,32 @@ class SimScreen:
         self.bench = bench
         self.width_px, self.height_px, self.bit_depth = m.width_px, m.height_px, m.bit_depth
         self.shown = 0
+        self.closed = False
 
     def show(self, pattern: np.ndarray) -> None:
-        """Hand ``pattern`` to the simulated panel (it changes after the display latency)."""
-        self.bench.show(pattern)
+        """Hand ``pattern`` (height x width gray levels) to the simulated panel (it changes after the display
+        latency)."""
+        if self.closed:
+            raise ConnectionError("sim screen: show after close")
+        pattern = check_panel_pattern(pattern, self.width_px, self.height_px, self.bit_depth, "sim screen")
+        self.bench.show(pattern.astype(dtype_for(self.bit_depth), copy=False))
         self.shown += 1
 
     def close(self) -> None:
-        """Blank the panel to gray 0."""
-        self.bench.show(np.zeros((self.height_px, self.width_px), np.uint16))
+        """Blank the panel to gray 0 (safe to call twice)."""
+        if not self.closed:
+            self.bench.show(np.zeros((self.height_px, self.width_px), np.uint16))
+            self.closed = True
 
 
 class SimCamera:
-    """A free-running simulated camera: frame k exposes from k * period for ``exposure_s``.
+    """A simulated camera, free running or software triggered (``camera.trigger``).
 
-    ``grab`` returns the first frame whose exposure ends after the call, so a frame may have started before it
-    (as a streaming camera's next buffer does). Faults come from the config's ``[simulator.faults]`` rates.
+    Free running, frame k exposes from k * period for ``exposure_s``, and ``grab`` returns the first frame whose
+    exposure ends after the call, so a frame may have started before it (as a streaming camera's next buffer does).
+    Software triggered, ``grab`` triggers one exposure that starts at the call, or when the previous exposure ends
+    (readout overlaps the next exposure, so triggered frames may follow each other back to back). Faults come from
+    the config's ``[simulator.faults]`` rates.
     """
 
     def __init__(self, bench: Bench):
@@ -42,8 +54,10 @@ class SimCamera:
         self._exposure_s = cam.exposure_s
         self.gain_db = cam.gain_db
         self.frame_rate_hz = bench.cfg.simulator.timing.frame_rate_hz
+        self.trigger_mode = cam.trigger
         self.roi: Rect | None = None
         self._last_k = -1
+        self._exposed_until_ns = 0  # software trigger: the end of the last exposure
         self.delivered = 0
         self.closed = False
 
@@ -72,14 +86,26 @@ class SimCamera:
         exposure = self._exposure_s
         # whole nanoseconds, so that frame numbers depend only on the clock reading, not on float rounding
         exposure_ns, period_ns = round(exposure * 1e9), round(max(1.0 / self.frame_rate_hz, exposure) * 1e9)
-        k = max((round(clock.now() * 1e9) - exposure_ns) // period_ns + 1, self._last_k + 1)
-        while faults.drop_rate and rng.random() < faults.drop_rate:
-            k += 1
-        t_start = k * period_ns / 1e9
-        t_mid = (k * period_ns + exposure_ns / 2) / 1e9
+        if self.trigger_mode == "software":
+            now = clock.now()
+            start_ns = max(math.ceil(now * 1e9), self._exposed_until_ns)
+            while start_ns / 1e9 < now:  # never a hair before the call, whatever the float rounding
+                start_ns += 1
+            self._exposed_until_ns = start_ns + exposure_ns
+            # exposures start at least one exposure apart, so this key (noise, vibration) rises with every frame
+            k = max(start_ns // exposure_ns, self._last_k + 1)
+            sequence = self.delivered
+        else:
+            k = max((round(clock.now() * 1e9) - exposure_ns) // period_ns + 1, self._last_k + 1)
+            while faults.drop_rate and rng.random() < faults.drop_rate:
+                k += 1
+            start_ns = k * period_ns
+            sequence = k
+        t_start = start_ns / 1e9
+        t_mid = (start_ns + exposure_ns / 2) / 1e9
         irradiance = self.bench.irradiance(t_mid, exposure, self.bench.tilt_at(t_mid, k))
         electrons = self.bench.electrons(irradiance, exposure).reshape(self.height_px, self.width_px)
-        image = self.bench.sensor.expose(electrons, self.gain_db, key=k)
+        image = self.bench.sensor.expose(electrons, self.gain_db, key=k, exposure_s=exposure)
         complete = True
         if faults.corrupt_rate and rng.random() < faults.corrupt_rate:
             image[int(rng.integers(1, self.height_px)):] = 0  # a truncated buffer: the tail never arrived
@@ -90,7 +116,7 @@ class SimCamera:
         clock.wait_until(t_start + exposure)
         self._last_k = k
         self.delivered += 1
-        return Frame(image, t_mid, exposure, self.gain_db, self.bit_depth, k, complete)
+        return Frame(image, t_mid, exposure, self.gain_db, self.bit_depth, sequence, complete)
 
     def close(self) -> None:
         """Stop the simulated camera; later grabs raise ConnectionError."""

@@ -4,7 +4,12 @@ Propagation follows K. Matsushima and T. Shimobaba, "Band-limited angular spectr
 of free-space propagation in far and near fields", Optics Express 17(22), 19662 (2009): the field is zero-padded to
 twice its size and spatial frequencies above u_limit = 1 / (lambda sqrt((2 du z)^2 + 1)) are dropped, which removes
 the aliasing of the transfer function at long distances. Coordinates are in um from the panel centre,
-x to the right and y down, as seen by the camera looking back along the reflected beam.
+x to the right and y down, as seen by the camera looking back along the reflected beam; panel column x and camera
+x are one axis (no mirror flip). The panel's pixels are flat steps: their aperture's sinc envelope is part of the
+transfer function, so a binary grating's orders have Goodman's efficiencies, not those of point samples.
+
+Waves are written exp(i(k.r - w t)): the transfer function is exp(+i k_z z), and a phase exp(+i 2 pi x / L) on the
+panel sends the light toward +x (k_x = 2 pi / L > 0).
 """
 
 from __future__ import annotations
@@ -22,34 +27,46 @@ def centred_coords_um(n: int, pitch_um: float) -> np.ndarray:
     return (np.arange(n) - (n - 1) / 2) * pitch_um
 
 
+def beam_amplitude(x_um: np.ndarray, y_um: np.ndarray, beam) -> np.ndarray:
+    """Relative incident amplitude (1 at the beam centre) at panel positions (um from the panel centre).
+
+    ``beam`` is a config ``[simulator.beam]`` section. A flat-top is a super-Gaussian of order 10 (edges a few
+    percent of the radius wide, as a real beam shaper gives).
+    """
+    r2 = (x_um - beam.center_mm[0] * 1e3) ** 2 + (y_um - beam.center_mm[1] * 1e3) ** 2
+    w2 = (beam.radius_mm * 1e3) ** 2
+    return np.exp(-r2 / w2) if beam.profile == "gaussian" else np.exp(-((r2 / w2) ** 10))
+
+
 def beam_field(width: int, height: int, pitch_um: float, beam, wavelength_um: float, power_w: float) -> np.ndarray:
     """Incident complex amplitude on the panel grid, scaled so that sum |E|^2 * pitch^2 = ``power_w``.
 
-    ``beam`` is a config ``[simulator.beam]`` section. |E|^2 is an irradiance in W/um^2. A flat-top is a
-    super-Gaussian of order 10 (edges a few percent of the radius wide, as a real beam shaper gives).
+    ``beam`` is a config ``[simulator.beam]`` section. |E|^2 is an irradiance in W/um^2. A wavefront of radius R
+    multiplies the field by exp(+i k r^2 / 2R): with waves exp(i(k z - w t)), R > 0 is a diverging beam.
     """
-    x = centred_coords_um(width, pitch_um)[None, :] - beam.center_mm[0] * 1e3
-    y = centred_coords_um(height, pitch_um)[:, None] - beam.center_mm[1] * 1e3
-    r2 = x**2 + y**2
-    w2 = (beam.radius_mm * 1e3) ** 2
-    amp = np.exp(-r2 / w2) if beam.profile == "gaussian" else np.exp(-((r2 / w2) ** 10))
-    field = amp.astype(np.complex128)
+    x = centred_coords_um(width, pitch_um)[None, :]
+    y = centred_coords_um(height, pitch_um)[:, None]
+    field = beam_amplitude(x, y, beam).astype(np.complex128)
     if beam.curvature_m:
         k = 2 * np.pi / wavelength_um
+        r2 = (x - beam.center_mm[0] * 1e3) ** 2 + (y - beam.center_mm[1] * 1e3) ** 2
         field *= np.exp(1j * k * r2 / (2 * beam.curvature_m * 1e6))
     norm = np.sqrt(power_w / (np.sum(np.abs(field) ** 2) * pitch_um**2))
     return field * norm
 
 
 def transfer_function(shape: tuple[int, int], pitch_um: float, wavelength_um: float, distance_um: float) -> np.ndarray:
-    """Band-limited angular-spectrum transfer function (complex64, FFT order) without the common exp(ikz)."""
+    """Band-limited angular-spectrum transfer function (complex64, FFT order) without the common exp(ikz), for
+    fields of flat pixels ``pitch_um`` wide (100 % fill factor)."""
     ny, nx = shape
     fx = sfft.fftfreq(nx, d=pitch_um)[None, :]
     fy = sfft.fftfreq(ny, d=pitch_um)[:, None]
     inv_lam2 = 1.0 / wavelength_um**2
     arg = inv_lam2 - fx**2 - fy**2
     kz_minus_k = 2 * np.pi * (np.sqrt(np.maximum(arg, 0.0)) - 1.0 / wavelength_um)
-    h = np.exp(1j * distance_um * kz_minus_k)
+    # each panel pixel is a flat step one pitch wide, not a point sample: its aperture weights the angular spectrum
+    # by sinc(f pitch) in x and y (the rest of its light goes to the pixel grid's own orders, off the grid here)
+    h = np.exp(1j * distance_um * kz_minus_k) * np.sinc(fx * pitch_um) * np.sinc(fy * pitch_um)
     lim_x = 1.0 / (wavelength_um * np.sqrt((2 * distance_um / (nx * pitch_um)) ** 2 + 1))
     lim_y = 1.0 / (wavelength_um * np.sqrt((2 * distance_um / (ny * pitch_um)) ** 2 + 1))
     keep = (arg > 0) & (np.abs(fx) < lim_x) & (np.abs(fy) < lim_y)

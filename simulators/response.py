@@ -10,6 +10,10 @@ Sources:
 - Temperature: birefringence follows the order parameter, dn(T) proportional to (1 - T/T_c)^beta (Haller's
   approximation; beta of about 0.2 from memory).
 - Reflective double pass: phi = 4 pi d dn_eff / lambda, lengthened by 1/cos of the refraction angle in the cell.
+
+Sign (the project's convention): the panel multiplies the reflected field by exp(+i phi(g)) with phi the optical
+delay (waves exp(i(k.r - w t))), so the extraordinary light's phi(g) is the retardance. It falls as the voltage
+tilts the director upright; ``phase_rad`` returns phi(g) - phi(0) with that true direction (negative, falling).
 """
 
 from __future__ import annotations
@@ -74,11 +78,11 @@ class PanelResponse:
         return 4 * np.pi * self.resp.cell_gap_um * (n_eff - self.n_o) * self.path_factor / self.wavelength_um
 
     def phase_rad(self, gray) -> np.ndarray:
-        """Phase modulation relative to gray 0 (rad), positive: the calibration's true curve."""
-        return self.retardance_rad(0) - self.retardance_rad(gray)
+        """Phase the panel adds at gray level(s) less that at gray 0 (rad): the true curve, falling with gray."""
+        return self.retardance_rad(gray) - self.retardance_rad(0)
 
     def curve(self) -> tuple[np.ndarray, np.ndarray]:
-        """Every gray level and its true phase (rad)."""
+        """Every gray level and its true phase phi(g) - phi(0) (rad)."""
         grays = np.arange(self.gray_max + 1)
         return grays, self.phase_rad(grays)
 

@@ -3,6 +3,12 @@
 The model is the linear one of the EMVA 1288 standard: mean electrons = QE * photons, counts = electrons / K + offset,
 so that the temporal variance (ADU^2) is mean_above_offset / K + (read_noise_e / K)^2, K in e-/ADU.
 
+Spatial non-uniformity, also after EMVA 1288, fixed per camera (drawn once from the bench seed, the same in every
+frame): each pixel's photo-electrons are multiplied by a gain 1 + PRNU z_1, a dark offset DSNU z_2 (e-) is added, and
+dark current (e-/s, times the exposure) adds charge with its own shot noise; a few hot pixels have a much larger dark
+current. z_1, z_2 are standard normal maps. Per pixel the photon transfer stays linear:
+var(ADU) = (mean_ADU - offset_ADU - DSNU_ADU) / K + (read_noise_e / K)^2.
+
 Noise draws: where a pixel expects at least ``EXACT_BELOW_E`` electrons, shot and read noise are drawn together as
 one normal variate of variance mean + read^2 (the normal approximation to Poisson, whose skewness 1/sqrt(mean) is
 below 0.16 there); below it the shot noise is an exact Poisson draw. Each frame's draws come from generators seeded by (bench seed,
@@ -27,6 +33,7 @@ class Sensor:
         self.bit_depth = bit_depth
         self.full_scale = 2**bit_depth - 1
         self.seed = seed
+        self._maps: dict[tuple[int, ...], tuple[np.ndarray | None, np.ndarray | None, np.ndarray | None]] = {}
         self._pool = ThreadPoolExecutor(max_workers=2, thread_name_prefix="sensor-noise")
 
     def e_per_adu(self, gain_db: float) -> float:
@@ -40,14 +47,38 @@ class Sensor:
         list(self._pool.map(lambda p: p[0].standard_normal(dtype=np.float32, out=p[1]), parts))
         return out
 
-    def expose(self, electrons_mean: np.ndarray, gain_db: float, key: int = 0, noiseless: bool = False) -> np.ndarray:
-        """Counts (uint16, same shape) for expected electrons per pixel.
+    def fixed_pattern(self, shape: tuple[int, ...]) -> tuple[np.ndarray | None, np.ndarray | None,
+                                                              np.ndarray | None]:
+        """Per-pixel gain (relative), dark offset (e-) and dark current (e-/s) of a sensor of ``shape``, flattened;
+        None where that non-uniformity is off. Drawn once from the bench seed."""
+        if shape not in self._maps:
+            n = self.noise
+            size = int(np.prod(shape))
+            rng = np.random.default_rng([self.seed, 3])
+            gain = (1.0 + n.prnu * rng.standard_normal(size)).astype(np.float32) if n.prnu else None
+            offset = (n.dsnu_e * rng.standard_normal(size)).astype(np.float32) if n.dsnu_e else None
+            dark = None
+            if n.dark_current_e_per_s or n.hot_pixels:
+                dark = np.full(size, n.dark_current_e_per_s, np.float32)
+                dark[rng.choice(size, size=min(n.hot_pixels, size), replace=False)] = n.hot_pixel_e_per_s
+            self._maps[shape] = (gain, offset, dark)
+        return self._maps[shape]
+
+    def expose(self, electrons_mean: np.ndarray, gain_db: float, key: int = 0, noiseless: bool = False,
+               exposure_s: float = 0.0) -> np.ndarray:
+        """Counts (uint16, same shape) for expected photo-electrons per pixel during ``exposure_s`` (s).
 
         Frames with the same ``key`` get the same noise; ``noiseless`` gives the rounded mean.
         """
         n = self.noise
         shape = electrons_mean.shape
-        mean = np.minimum(electrons_mean.astype(np.float32, copy=False).ravel(), 4 * n.full_well_e)
+        gain, offset, dark = self.fixed_pattern(shape)
+        mean = electrons_mean.astype(np.float32, copy=True).ravel()
+        if gain is not None:
+            mean *= gain
+        if dark is not None and exposure_s > 0:
+            mean += dark * np.float32(exposure_s)
+        np.minimum(mean, 4 * n.full_well_e, out=mean)
         if noiseless:
             electrons = mean.copy()
         else:
@@ -62,6 +93,8 @@ class Sensor:
             if low.size:
                 shot = gens[2].poisson(mean[low]).astype(np.float32)
                 electrons[low] = shot + np.float32(n.read_noise_e) * z[low]
+        if offset is not None:
+            electrons += offset
         # counts = round(min(e, full well) / K + offset), clipped to the ADC's range: the full well is a clip in
         # counts too, so one clip does both; adding 0.5 and truncating rounds (half up)
         adu = electrons

@@ -51,3 +51,12 @@ def band_phasor(image, cfg, cols):
     window = np.hanning(x.size)
     profile = np.asarray(image, float)[:, cols].mean(axis=0)
     return np.sum(window * profile * np.exp(-2j * np.pi * x / period_cam_px))
+
+
+@pytest.fixture(scope="session")
+def fake_gige():
+    """Aravis's simulated GigE Vision camera on loopback (tests/genicam_cams.py); killed at the end of the session."""
+    from genicam_cams import FakeGigE
+    server = FakeGigE()
+    yield server
+    server.kill()

@@ -149,8 +149,9 @@ def test_unplugged_port_is_a_fault(instruments):
 
 
 def test_missing_port_is_a_usage_error_naming_the_setting():
-    with pytest.raises(UsageError, match=r"^accessories.shutter.port: cannot open /dev/fringecal-no-such-tty"):
+    with pytest.raises(UsageError, match=r"^accessories.shutter.port: cannot open /dev/fringecal-no-such-tty") as err:
         open_accessories(accessories_cfg(shutter="/dev/fringecal-no-such-tty"))
+    assert 'port = "" leaves the part out' in str(err.value)
 
 
 def test_instrument_answering_nonsense_when_opened_is_a_usage_error(instruments):

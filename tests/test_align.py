@@ -85,7 +85,7 @@ def test_view_renders_figures_picture_and_hint(small_cfg):
 
 def test_align_command_without_a_terminal_runs_for_its_seconds(small_cfg, tmp_path, capsys):
     cfg = small_config_file(tmp_path)
-    assert main(["align", "--sim", "--config", str(cfg), "--seconds", "1", "--rate", "5"]) == 0
+    assert main(["align", "--sim", "--config", str(cfg), "--seconds", "1", "--rate", "5", "--terminal"]) == 0
     lines = [l for l in capsys.readouterr().out.splitlines() if l.startswith("frame")]
     assert 2 <= len(lines) <= 6 and "contrast" in lines[0]
 

@@ -1,5 +1,6 @@
 """One contract every camera backend passes (simulated, opencv on a recording written by cv2, replay of a folder,
-and a lab's own module:Class), plus each backend's own cases and its one-line errors."""
+a lab's own module:Class, and genicam on Aravis's simulated camera in process and over GigE Vision on loopback),
+plus each backend's own cases and its one-line errors (genicam's in tests/test_genicam.py)."""
 
 import csv
 import time
@@ -54,7 +55,7 @@ def replay_folder(tmp_path):
     return folder, images
 
 
-@pytest.fixture(params=["sim", "opencv", "replay", "module"])
+@pytest.fixture(params=["sim", "opencv", "replay", "module", "genicam-in-process", "genicam-gige-loopback"])
 def camera(request, small_cfg, image_sequence, replay_folder):
     kind = request.param
     if kind == "sim":
@@ -63,8 +64,13 @@ def camera(request, small_cfg, image_sequence, replay_folder):
         cam = open_camera(settings(small_cfg, backend="opencv", device=str(image_sequence[0])))
     elif kind == "replay":
         cam = open_camera(settings(small_cfg, backend="replay", device=str(replay_folder[0])))
-    else:
+    elif kind == "module":
         cam = open_camera(settings(small_cfg, backend="toy_camera:ToyCamera"))
+    else:
+        from genicam_cams import FAKE_ID, require_aravis
+        require_aravis()
+        device = FAKE_ID if kind == "genicam-in-process" else request.getfixturevalue("fake_gige").ensure_running()
+        cam = open_camera(settings(small_cfg, backend="genicam", device=device, bit_depth=16))
     yield cam
     cam.close()
 

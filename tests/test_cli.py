@@ -19,7 +19,7 @@ def run(*args):
 def test_help_teaches_the_method_and_lists_commands():
     out = run("--help")
     assert out.returncode == 0
-    for word in ("split-screen", "preview", "sim-truth", "run", "--sim", "a typical session:"):
+    for word in ("split-screen", "preview", "sim-truth", "run", "--sim", "first time on a real bench"):
         assert word in out.stdout
 
 
@@ -58,7 +58,7 @@ def test_sim_truth_matches_the_bench(tmp_path, demo_cfg):
 @pytest.mark.parametrize("args, fragment", [
     (["preview", "--sim", "--mirror-gray", "300", "--out", "f.png"], "--mirror-gray: expected a gray level in [0, 255]"),
     (["preview", "--sim", "--out", "f.jpg"], "--out: expected a .png"),
-    (["preview", "--out", "f.png"], "use --sim"),
+    (["preview", "--out", "f.png"], "--config: a bench config is needed without --sim"),
     (["preview", "--sim", "--config", "nowhere.toml", "--out", "f.png"], "nowhere.toml: no such config file"),
     (["sim-truth", "--out", "no/such/dir/t.csv"], "folder no/such/dir does not exist"),
 ])

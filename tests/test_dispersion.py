@@ -32,19 +32,30 @@ def synthetic(coeffs, nm, noise_rad, seed):
     return Calibration(nm, GRAYS, noisy, np.full(phase.size, max(noise_rad, 1e-4))), phase
 
 
+def simulated(coeffs, nm):
+    """The simulated liquid crystal's curve at ``nm`` (not the fit's premise: the index ellipsoid is not linear in
+    dn), driven from 0 to 20 V so that the director stands upright at full gray."""
+    from analysis.config import Response
+    from simulators.response import PanelResponse
+    resp = Response(ne_cauchy=coeffs[0], no_cauchy=coeffs[1], v_min=0.0, v_max=20.0)
+    phase = -PanelResponse(resp, 8, nm, incidence_deg=3.0).phase_rad(GRAYS)  # the fit takes a rising curve
+    return Calibration(nm, GRAYS, phase, np.full(phase.size, 1e-4))
+
+
 @pytest.mark.parametrize("coeffs,wavelengths,paper", [
     (LI_2005, (450.0, 550.0, 650.0), "Li 2005"),
     (TKACHENKO_2006, (633.0, 1064.0, 1550.0), "Tkachenko 2006"),
 ])
 def test_three_wavelengths_recover_published_e7_dispersion(coeffs, wavelengths, paper):
-    """Three noise-free curves give B/A and C/A of the E7 birefringence (Li, Wen, Gauza, Lu, Wu, J. Display
-    Technol. 1, 51 (2005); Tkachenko et al., Mol. Cryst. Liq. Cryst. 454, 263 (2006)) to 1 %."""
-    model = fit_panel([synthetic(coeffs, nm, 0.0, i)[0] for i, nm in enumerate(wavelengths)])
+    """Three noise-free curves of the simulated panel give B/A and C/A of the E7 birefringence (Li, Wen, Gauza, Lu,
+    Wu, J. Display Technol. 1, 51 (2005); Tkachenko et al., Mol. Cryst. Liq. Cryst. 454, 263 (2006)): C/A to 0.6 %,
+    the small B/A of Li's fit to 5 % (2.5 % and 0.3 % reached; the curve shape moves slightly with dn)."""
+    model = fit_panel([simulated(coeffs, nm) for nm in wavelengths])
     (ae, be, ce), (ao, bo, co) = coeffs
     a = ae - ao
     assert not model.tied
-    assert model.b_um2 == pytest.approx((be - bo) / a, rel=0.01), paper
-    assert model.c_um4 == pytest.approx((ce - co) / a, rel=0.01), paper
+    assert model.b_um2 == pytest.approx((be - bo) / a, rel=0.05), paper
+    assert model.c_um4 == pytest.approx((ce - co) / a, rel=0.006), paper
 
 
 def test_tkachenko_birefringence_ratios_match_the_derived_values():

@@ -9,8 +9,8 @@ from hypothesis import strategies as st
 
 from analysis.band import Band, find_band, survey_band
 from analysis.carrier import Carrier, NoFringesError, find_carrier
-from analysis.fringe import (METHODS, carrier_lsq, cosine_fit, estimate, exposure, fourier, lsq_model,
-                             pixel_noise_var)
+from analysis.fringe import (METHODS, WEIGHTED_ORDER, carrier_lsq, cosine_fit, estimate, exposure, fourier,
+                             lsq_model, pixel_noise_var, weighted_lsq)
 from conftest import split_for
 from synthetic import fringes
 
@@ -42,7 +42,7 @@ def test_carrier_prefers_the_fundamental_over_a_stronger_second_harmonic():
     assert find_carrier(img).fx == pytest.approx(0.094, rel=5e-3)
 
 
-@pytest.mark.parametrize("method,factor", [("carrier-lsq", 1.3), ("fourier", 1.6)])
+@pytest.mark.parametrize("method,factor", [("weighted-lsq", 1.2), ("carrier-lsq", 1.3), ("fourier", 1.6)])
 def test_scatter_near_the_cramer_rao_bound(method, factor):
     """Phase scatter on 60 noisy frames within ``factor`` of the bound for a sinusoid of known frequency in white
     Gaussian noise, var >= 2 sigma^2 / (N A^2) (S. M. Kay, Fundamentals of Statistical Signal Processing: Estimation
@@ -73,8 +73,8 @@ def test_known_phase_steps_recovered(method):
 
 def test_carrier_lsq_unbiased_under_envelope_rotation_and_chirp():
     """Gaussian envelopes, a sloping stray-light background, 0.4 deg of rotation and a slight chirp: the error of
-    carrier-lsq does not depend on the phase (spread below 2 mrad over a full turn), while the classic cosine fit
-    to one line is biased by an amount that changes with the phase itself."""
+    carrier-lsq does not depend on the phase (spread below 2 mrad over a full turn), while a cosine fit to one
+    image row is biased by an amount that changes with the phase itself."""
     steps = np.linspace(-np.pi, np.pi, 13)[:-1]
     fy = 0.094 * math.tan(math.radians(0.4))
     imgs = [fringes(p, SHAPE, 0.094, fy, envelope=True, chirp=2e-5) for p in steps]
@@ -169,8 +169,20 @@ def test_intensity_scaling_changes_no_phase(scale, phase):
 def test_fourier_reports_contrast():
     """Visibility A / B of clean fringes (B = 300, A = 150 -> 0.5) from every estimator."""
     img = fringes(0.3, SHAPE, amplitude=150.0)
-    for est in (fourier(img, FULL, CARRIER), cosine_fit(img, FULL, CARRIER), carrier_lsq(img, lsq_model(FULL, CARRIER))):
+    for est in (fourier(img, FULL, CARRIER), cosine_fit(img, FULL, CARRIER), carrier_lsq(img, lsq_model(FULL, CARRIER)),
+                weighted_lsq(img, lsq_model(FULL, CARRIER, WEIGHTED_ORDER))):
         assert est.contrast == pytest.approx(0.5, abs=0.01)
+
+
+@pytest.mark.parametrize("method", ["weighted-lsq", "carrier-lsq"])
+def test_complex_fringe_amplitude_and_background(method):
+    """The least-squares estimators keep the frame's complex fringe amplitude A exp(i phi) (ADU) and the background
+    level, which a cyclic-error fit over all levels needs: B = 300, A = 150 and phi = 0.3 on clean fringes, dark
+    80 ADU included in B."""
+    est = estimate(fringes(0.3, SHAPE, amplitude=150.0, background=380.0), FULL, CARRIER, method, dark_adu=80.0)
+    assert est.fringe_adu == pytest.approx(150.0 * np.exp(0.3j), abs=0.2)
+    assert est.background_adu == pytest.approx(380.0, abs=0.2)
+    assert est.contrast == pytest.approx(0.5, abs=1e-3)
 
 
 def test_no_fringes_is_a_one_line_error():

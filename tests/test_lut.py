@@ -34,7 +34,7 @@ def true_curve(**changes):
 
 def local_half_step(phase, gray):
     """Half the larger phase step (rad) either side of each gray: the most a nearest-gray choice can miss by."""
-    steps = np.diff(phase)
+    steps = np.abs(np.diff(phase))
     left = np.concatenate([[0.0], steps])[gray]
     right = np.concatenate([steps, [0.0]])[gray]
     return 0.5 * np.maximum(left, right)
@@ -47,14 +47,19 @@ def test_table_linearises_the_curve_it_came_from_to_within_quantisation(config):
     resp = PanelResponse(cfg.simulator.response, 8, cfg.laser.wavelength_nm, cfg.geometry.incidence_deg)
     gray, phase = resp.curve()
     lut = build_lut(gray, phase, bit_depth=8)
-    achieved = phase[lut.gray] - phase[lut.gray[0]]
-    error = achieved - lut.target_phase_rad
+    # The table's first target sits exactly on a gray: entry 0 of a rising table, the last entry of a falling one
+    # (its table is read backwards).
+    ref = 0 if lut.direction == "rising" else -1
+    achieved = phase[lut.gray] - phase[lut.gray[ref]]
+    error = achieved - (lut.target_phase_rad - lut.target_phase_rad[ref])
     assert np.all(np.abs(error) <= local_half_step(phase, lut.gray) + 1e-6)
     # The report's figures are those of the table on this curve.
     assert lut.worst_quantisation_rad == pytest.approx(np.abs(error).max(), abs=1e-6)
     assert lut.rms_quantisation_rad == pytest.approx(np.sqrt(np.mean(error**2)), abs=1e-6)
     assert lut.rms_linearity_rad <= lut.rms_quantisation_rad + 1e-6
-    assert np.all(np.diff(lut.gray) >= 0), "a rising curve gives a non-decreasing table"
+    # The simulated panel's phase falls with gray (sign convention: phase added to the field), so its table runs from
+    # high grays to low ones.
+    assert lut.direction == "falling" and np.all(np.diff(lut.gray) <= 0), "a falling curve gives a non-increasing table"
 
 
 def test_noise_is_smoothed_not_copied_into_the_table():
@@ -134,20 +139,23 @@ def test_panel_with_less_than_two_pi_builds_for_its_reach_and_says_so():
     """A thin cell (1.6 um) reaches about 1.1 pi: the default table spans that reach and warns; an explicit 2 pi is
     honoured with a warning and its unreachable targets get the last gray."""
     gray, phase = true_curve(**{"simulator.response.cell_gap_um": 1.6})
-    reach = phase[-1] - phase[0]
+    reach = abs(phase[-1] - phase[0])
     assert reach < TWO_PI
     lut = build_lut(gray, phase, bit_depth=8)
     assert lut.range_rad == pytest.approx(reach, abs=1e-6)
     step = reach / lut.levels
-    assert phase[lut.gray[-1]] - phase[lut.gray[0]] >= reach - 2 * step, "the table spans the whole reach"
+    assert abs(phase[lut.gray[-1]] - phase[lut.gray[0]]) >= reach - 2 * step, "the table spans the whole reach"
     assert len(lut.warnings) == 1 and "reaches only" in lut.warnings[0]
-    error = phase[lut.gray] - phase[lut.gray[0]] - lut.target_phase_rad
+    ref = 0 if lut.direction == "rising" else -1  # the entry whose target sits exactly on a gray
+    error = phase[lut.gray] - phase[lut.gray[ref]] - (lut.target_phase_rad - lut.target_phase_rad[ref])
     assert np.all(np.abs(error) <= local_half_step(phase, lut.gray) + 1e-6)
 
     forced = build_lut(gray, phase, bit_depth=8, range_rad=TWO_PI)
     assert forced.range_rad == TWO_PI and "exceeds" in forced.warnings[0]
     beyond = forced.target_phase_rad > reach
-    assert np.all(forced.gray[beyond] == 255)
+    # The targets past the reach get the gray at the end of it (255): the table's last entries when the curve rises,
+    # its first ones when it falls (a falling table is read backwards).
+    assert np.all((forced.gray if forced.direction == "rising" else forced.gray[::-1])[beyond] == 255)
     assert forced.worst_quantisation_rad == pytest.approx(forced.target_phase_rad[-1] - reach, abs=0.01)
 
 

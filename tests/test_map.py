@@ -39,7 +39,7 @@ def test_surface_fits_a_quadratic_exactly():
 def test_map_recovers_each_tiles_range(tmp_path, capsys):
     cfg = small_config_file(tmp_path, **MAP)
     out = tmp_path / "map"
-    assert main(["map", "--sim", "--config", str(cfg), "--grid", "2x2", "--out", str(out), "--yes"]) == 0
+    assert main(["map", "--sim", "--config", str(cfg), "--grid", "2x2", "--out", str(out)]) == 0
     summary = json.loads((out / "map.json").read_text())
     errors = summary["truth_range_error_rad"]
     assert len(errors) == 4 and max(map(abs, errors.values())) < 0.02 * 2 * np.pi
@@ -59,7 +59,7 @@ def test_map_recovers_each_tiles_range(tmp_path, capsys):
 def test_map_resumes_after_the_camera_fails(tmp_path, capsys):
     cfg = small_config_file(tmp_path, **MAP, **{"simulator.faults.die_after_frames": 120})
     out = tmp_path / "map"
-    assert main(["map", "--sim", "--config", str(cfg), "--grid", "1x2", "--out", str(out), "--yes"]) == 3
+    assert main(["map", "--sim", "--config", str(cfg), "--grid", "1x2", "--out", str(out)]) == 3
     for _ in range(6):
         code = main(["map", "--resume", str(out)])
         if code == 0:

@@ -45,7 +45,7 @@ def run_folder(tmp_path_factory):
     root = tmp_path_factory.mktemp("report")
     quick = small_config_file(root, "quick.toml", **{"sweep.levels": list(range(0, 256, 8)) + [255],
                                                     "sweep.reference_every": 8})
-    assert main(["run", "--sim", "--config", str(quick), "--out", str(root / "run"), "--yes"]) == 0
+    assert main(["run", "--sim", "--config", str(quick), "--out", str(root / "run")]) == 0
     return root / "run"
 
 

@@ -46,7 +46,7 @@ def config_file(tmp_path, text, name="bench.toml"):
 def test_run_recovers_the_true_curve_and_tunes_a_pi_step(tmp_path, capsys, extra):
     """The main job on the simulator: the curve within 0.03 rad rms of the truth and a tuned pair whose true step
     is within 0.15 rad of pi (the best pair of a binary grating is a pi step, common practice)."""
-    args = ["run", "--sim", "--out", str(tmp_path / "run"), "--yes"]
+    args = ["run", "--sim", "--out", str(tmp_path / "run")]
     if extra:
         args += ["--config", str(config_file(tmp_path, extra))]
     assert main(args) == 0
@@ -95,7 +95,7 @@ def unit_counts(folder: Path):
 def test_killed_sweep_resumed_five_times_equals_an_uninterrupted_one(tmp_path):
     cfg = small_config_file(tmp_path)
     whole, cut = tmp_path / "whole", tmp_path / "cut"
-    common = ["--sim", "--config", str(cfg), "--yes", "--pair", "0:80"]
+    common = ["--sim", "--config", str(cfg), "--pair", "0:80"]
     subprocess.run(sweep_cmd(*common, "--out", str(whole)), check=True, capture_output=True)
 
     rng = random.Random(11)
@@ -135,7 +135,7 @@ def test_sweep_completes_through_timeouts_and_incomplete_frames(tmp_path):
     cfg = small_config_file(tmp_path, **{"simulator.faults.timeout_rate": 0.05, "simulator.faults.corrupt_rate": 0.01,
                                          "sweep.levels": list(range(0, 256, 2))})
     run = tmp_path / "run"
-    assert main(["sweep", "--sim", "--config", str(cfg), "--out", str(run), "--yes", "--pair", "0:80"]) == 0
+    assert main(["sweep", "--sim", "--config", str(cfg), "--out", str(run), "--pair", "0:80"]) == 0
     contents = read_journal(run / "journal.jsonl")
     faults = [r["fault"] for r in contents.records if "fault" in r]
     info = json.loads((run / "run.json").read_text())
@@ -149,7 +149,7 @@ def test_sweep_completes_through_timeouts_and_incomplete_frames(tmp_path):
 def test_camera_that_dies_stops_cleanly_and_the_run_resumes(tmp_path, capsys):
     cfg = small_config_file(tmp_path, **{"simulator.faults.die_after_frames": 200})
     run = tmp_path / "run"
-    assert main(["sweep", "--sim", "--config", str(cfg), "--out", str(run), "--yes", "--pair", "0:80"]) == 3
+    assert main(["sweep", "--sim", "--config", str(cfg), "--out", str(run), "--pair", "0:80"]) == 3
     err = capsys.readouterr().err
     assert "camera" in err and "disconnected" in err and str(run) in err
     info = json.loads((run / "run.json").read_text())
@@ -168,7 +168,7 @@ def test_camera_that_dies_stops_cleanly_and_the_run_resumes(tmp_path, capsys):
 def test_ctrl_c_stops_after_the_level_and_leaves_the_run_resumable(tmp_path):
     cfg = small_config_file(tmp_path)
     run, events = tmp_path / "run", tmp_path / "events"
-    proc = subprocess.Popen(sweep_cmd("--sim", "--config", str(cfg), "--yes", "--pair", "0:80", "--out", str(run),
+    proc = subprocess.Popen(sweep_cmd("--sim", "--config", str(cfg), "--pair", "0:80", "--out", str(run),
                                       "--events", str(events)), stdout=subprocess.PIPE, stderr=subprocess.PIPE,
                             text=True)
     wait_for_sweep(events, proc)
@@ -210,7 +210,7 @@ def test_an_existing_run_folder_is_never_overwritten(tmp_path):
 def test_analyze_reads_a_run_folder_and_agrees_with_the_run(tmp_path):
     cfg = small_config_file(tmp_path, **{"sweep.levels": list(range(0, 256, 5))})
     run, again = tmp_path / "run", tmp_path / "again"
-    assert main(["sweep", "--sim", "--config", str(cfg), "--out", str(run), "--yes", "--pair", "0:80"]) == 0
+    assert main(["sweep", "--sim", "--config", str(cfg), "--out", str(run), "--pair", "0:80"]) == 0
     assert main(["analyze", str(run), "--out", str(again)]) == 0
     first, second = read_csv(run / "phase.csv"), read_csv(again / "phase.csv")
     assert [r["gray"] for r in first] == [r["gray"] for r in second]
@@ -222,7 +222,7 @@ def test_analyze_reads_a_run_folder_and_agrees_with_the_run(tmp_path):
 def test_the_report_of_a_finished_run_says_it_is_complete(tmp_path):
     cfg = small_config_file(tmp_path, **{"sweep.levels": list(range(0, 256, 15))})
     run = tmp_path / "run"
-    assert main(["run", "--sim", "--config", str(cfg), "--out", str(run), "--yes"]) == 0
+    assert main(["run", "--sim", "--config", str(cfg), "--out", str(run)]) == 0
     page = (run / "report.html").read_text()
     assert "complete" in page and "not finished" not in page
 
@@ -230,7 +230,7 @@ def test_the_report_of_a_finished_run_says_it_is_complete(tmp_path):
 def test_run_json_says_what_ran_with_what(tmp_path):
     cfg = small_config_file(tmp_path, **{"sweep.levels": [0, 100, 200, 255]})
     run = tmp_path / "run"
-    assert main(["sweep", "--sim", "--config", str(cfg), "--out", str(run), "--yes", "--pair", "0:80"]) == 0
+    assert main(["sweep", "--sim", "--config", str(cfg), "--out", str(run), "--pair", "0:80"]) == 0
     info = json.loads((run / "run.json").read_text())
     assert info["devices"]["identity"]["camera"].startswith("simulated camera 256x200")
     assert info["config"]["camera"]["width_px"] == 256 and info["versions"]["fringecal"]

@@ -96,6 +96,23 @@ def test_ten_bit_panel_packs_into_red_and_green():
         s.close()
 
 
+def test_twelve_bit_patterns_read_back_with_every_bit():
+    """A 12-bit panel with red = gray >> 4 and green = gray << 4: a split screen at 12-bit grays, a blazed grating
+    drawn at 12 bits and random 12-bit grays all read back from the window with every bit (red bits 11..4, the top
+    nibble of green bits 3..0)."""
+    s = PygletScreen(panel_display(), bit_depth=12, shift_bits=(4, -4, 0))
+    try:
+        patterns = [split_screen(PANEL_W, PANEL_H, 2741, 0, 1299, SplitLayout(period_px=6), bit_depth=12),
+                    phase_to_gray(blazed_phase(PANEL_W, PANEL_H, period_px=13), bit_depth=12),
+                    np.random.default_rng(3).integers(0, 4096, (PANEL_H, PANEL_W))]
+        for pattern in patterns:
+            shown = s.show_checked(pattern).astype(int)
+            assert np.array_equal((shown[..., 0] << 4) | (shown[..., 1] >> 4), pattern)
+        assert int(patterns[1].max()) > 3500  # the blazed grating spans the 12-bit range (12 of 13 steps), not 8 bits
+    finally:
+        s.close()
+
+
 def test_lossy_packing_is_refused():
     with pytest.raises(DisplayError, match="modulator.rgb_shift_bits"):
         PygletScreen(panel_display(), bit_depth=10, shift_bits=(0, 0, 0))

@@ -18,7 +18,7 @@ def run_at(tmp_path, name, temperature_c):
             "simulator.response.temperature_c": temperature_c, "sweep.levels": list(range(0, 256, 15)) + [255],
             "accessories.thermometer.port": probe.port, "accessories.thermometer.timeout_s": 0.5})
         out = tmp_path / name
-        assert main(["sweep", "--sim", "--config", str(cfg), "--out", str(out), "--yes", "--pair", "0:80"]) == 0
+        assert main(["sweep", "--sim", "--config", str(cfg), "--out", str(out), "--pair", "0:80"]) == 0
     finally:
         probe.close()
     return out

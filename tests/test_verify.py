@@ -67,9 +67,10 @@ def test_verify_on_the_simulator_shows_the_tables_improvement(tmp_path, small_cf
     folder, lut, true_phase = truth_table
     config = small_config_file(tmp_path)
     assert main(["verify", "--sim", "--config", str(config), "--lut", str(folder), "--targets", "16",
-                 "--frames", "1"]) == 0
+                 "--frames", "1", "--periods", "4,8"]) == 0
     assert "the table passes" in capsys.readouterr().out
     doc = json.loads((folder / "verification.json").read_text())
+    assert sorted(doc["efficiency"]["periods"], key=int) == ["4", "8"]
     lin = doc["linearity"]
     assert lin["table"]["rms_rad"] <= 2 * lin["expected_rad"]
     assert lin["identity"]["rms_rad"] > 10 * lin["table"]["rms_rad"]

@@ -46,7 +46,7 @@ def test_sweep_waits_for_a_warming_panel(tmp_path, capsys):
     cfg = small_config_file(tmp_path, **LEVELS, **{"simulator.timing." + k: v for k, v in warm.items()},
                             **{"simulator.timing.vibration_urad": 0.0})
     run = tmp_path / "run"
-    assert main(["sweep", "--sim", "--config", str(cfg), "--out", str(run), "--yes", "--pair", "0:80",
+    assert main(["sweep", "--sim", "--config", str(cfg), "--out", str(run), "--pair", "0:80",
                  "--warmup-minutes", "60"]) == 0
     info = json.loads((run / "run.json").read_text())
     assert info["warmup"]["stable"] and abs(info["warmup"]["slope_rad_per_min"]) < 0.01
@@ -68,7 +68,7 @@ def test_sweep_waits_for_a_warming_panel(tmp_path, capsys):
 def test_a_cold_bench_with_no_warm_up_ends_after_one_window(tmp_path):
     cfg = small_config_file(tmp_path, **LEVELS)
     run = tmp_path / "run"
-    assert main(["sweep", "--sim", "--config", str(cfg), "--out", str(run), "--yes", "--pair", "0:80",
+    assert main(["sweep", "--sim", "--config", str(cfg), "--out", str(run), "--pair", "0:80",
                  "--warmup-minutes", "5"]) == 0
     info = json.loads((run / "run.json").read_text())
     assert info["warmup"]["stable"] and info["warmup"]["minutes"] == pytest.approx(2.0, abs=0.2)

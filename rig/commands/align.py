@@ -1,4 +1,5 @@
-"""``fringecal align``: a live view for aligning the bench — contrast, exposure, fringe period and hints."""
+"""``fringecal align``: a live view for aligning the bench — contrast, exposure, fringe period and hints — in a
+window on a display other than the panel's (rig/devices/align_window.py), or in the terminal."""
 
 from __future__ import annotations
 
@@ -19,8 +20,11 @@ from rich.text import Text
 
 from analysis.alignment import AlignmentFigures, alignment_figures, best_waveplate_deg, hint
 from analysis.patterns import layout_of, split_screen
+from rig.devices.align_window import AlignWindow, align_display, compose_view
+from rig.devices.screen import DisplayError, list_displays
 from rig.errors import UsageError
 from rig.options import load_bench_config
+from rig.output.numbers import fixed
 from rig.run.session import open_devices
 from rig.safety import add_acknowledgement_flag, ensure_laser_safety
 
@@ -37,6 +41,8 @@ def register(command) -> None:
     p.add_argument("--mirror-gray", type=int, metavar="G", help="gray of the mirror half (default the reference)")
     p.add_argument("--scan-waveplate", action="store_true",
                    help="first step the motorised half-wave plate over 90 deg, fit the contrast and move to the best")
+    p.add_argument("--terminal", action="store_true",
+                   help="the view in the terminal, not in a window (automatic when there is no display)")
     add_acknowledgement_flag(p)
 
 
@@ -61,6 +67,7 @@ class AlignState:
     frames: int = 0
     picture: list[str] = field(default_factory=list)
     done: bool = False
+    image: np.ndarray | None = None  # the last camera frame
 
 
 def apply_key(key: str, state: AlignState, gray_max: int) -> bool:
@@ -109,26 +116,60 @@ class NoKeys(contextlib.nullcontext):
         return []
 
 
+def figure_rows(state: AlignState) -> list[tuple[str, str]]:
+    """(label, value) lines of the view, the same in the terminal and in the window."""
+    fig = state.figures
+    rows = [("pattern", f"mirror gray {state.mirror_gray}, grating {state.low}/{state.high}"),
+            ("exposure", f"{state.exposure_s * 1e3:.3f} ms")]
+    if fig is not None:
+        rows.append(("contrast", f"{fig.contrast:.3f}   (best so far {state.best_contrast:.3f})"))
+        rows.append(("peak", f"{100 * fig.peak_fraction:.0f} % of full scale"
+                     + (f"  SATURATED: {fig.saturated_px} px" if fig.saturated_px else "")))
+        if fig.period_px is not None:
+            rows.append(("fringes", f"period {fig.period_px:.2f} px at {fixed(fig.angle_deg, 1)} deg, "
+                                    f"{fig.fringe_count:.0f} across the band"))
+            rows.append(("uniformity", f"period varies {100 * fig.period_spread:.1f} % rms across the band"))
+    return rows
+
+
 def render(state: AlignState):
     fig = state.figures
     table = Table.grid(padding=(0, 2))
     table.add_column(style="bold")
     table.add_column()
-    table.add_row("pattern", f"mirror gray {state.mirror_gray}, grating {state.low}/{state.high}")
-    table.add_row("exposure", f"{state.exposure_s * 1e3:.3f} ms")
+    for label, value in figure_rows(state):
+        table.add_row(label, Text(value, style="bold red" if "SATURATED" in value else ""))
     if fig is not None:
-        peak = Text(f"{100 * fig.peak_fraction:.0f} % of full scale")
-        if fig.saturated_px:
-            peak.append(f"  SATURATED: {fig.saturated_px} px", style="bold red")
-        table.add_row("contrast", f"{fig.contrast:.3f}   (best so far {state.best_contrast:.3f})")
-        table.add_row("peak", peak)
-        if fig.period_px is not None:
-            table.add_row("fringes", f"period {fig.period_px:.2f} px at {fig.angle_deg:.1f} deg, "
-                                     f"{fig.fringe_count:.0f} across the band")
-            table.add_row("uniformity", f"period varies {100 * fig.period_spread:.1f} % rms across the band")
         table.add_row("hint", Text(hint(fig), style="bold"))
     return Panel(Group(table, Text("\n".join(state.picture)), Text(KEY_HELP, style="dim")),
                  title=f"fringecal align — frame {state.frames}", title_align="left")
+
+
+def window_view(state: AlignState, full_scale: int, message: str | None):
+    """The window's picture of ``state`` (rig.devices.align_window.compose_view), None before the first frame."""
+    if state.image is None:
+        return None
+    fig = state.figures
+    rows = figure_rows(state) + ([("camera", message)] if message else [])
+    return compose_view(state.image, full_scale, fig.band, fig.angle_deg, rows, hint(fig), KEY_HELP)
+
+
+def open_window(cfg, terminal: bool) -> AlignWindow | None:
+    """The alignment window on a display other than the panel's; None for the terminal view (--terminal, or no
+    display reachable)."""
+    if terminal:
+        return None
+    try:
+        displays = list_displays()
+    except DisplayError:
+        return None
+    display = align_display(displays, cfg.modulator)
+    try:
+        return AlignWindow(display)
+    except Exception as err:  # pyglet raises several unrelated types when a display gives no OpenGL window
+        print(f"align: no window on {display.describe()} ({type(err).__name__}: {err}); the view is in the "
+              "terminal", file=sys.stderr)
+        return None
 
 
 def align_loop(cfg, devices, state: AlignState, keys, update, seconds: float, rate_hz: float) -> AlignState:
@@ -163,6 +204,7 @@ def align_loop(cfg, devices, state: AlignState, keys, update, seconds: float, ra
                                           if devices.bench is not None else 0.0)
         state.best_contrast = max(state.best_contrast, state.figures.contrast)
         state.frames += 1
+        state.image = frame.image
         state.picture = text_image(frame.image)
         update(state, None)
         time.sleep(max(0.0, 1.0 / rate_hz - (time.monotonic() - started)))
@@ -195,8 +237,10 @@ def scan_waveplate(cfg, devices, rotator, state: AlignState, report) -> float:
 
 
 def cmd_align(args) -> int:
-    """Show the split pattern and update contrast, exposure, fringe period and orientation, their uniformity, a
-    coarse picture of the camera image and a hint for the likeliest fault, several times a second."""
+    """Show the split pattern and update contrast, exposure, fringe period and orientation, their uniformity, the
+    camera image and a hint for the likeliest fault, several times a second: in a window on a display other than
+    the panel's (the image scaled, the fringe band outlined, saturated pixels in red, the fringe profile across the
+    band), or in the terminal with --terminal or without a display."""
     cfg = load_bench_config(args)
     if args.rate <= 0:
         raise UsageError(f"--rate: expected updates per second above 0, got {args.rate}")
@@ -207,9 +251,15 @@ def cmd_align(args) -> int:
         raise UsageError(f"--mirror-gray: expected a gray level in [0, {cfg.gray_max}], got {gray}")
     ensure_laser_safety(cfg.laser.laser_class, cfg.laser.wavelength_nm, sim=args.sim or cfg.camera.backend == "sim",
                         acknowledged=args.laser_safety_acknowledged or cfg.laser.safety_acknowledged)
-    interactive = sys.stdin.isatty() and sys.stdout.isatty()
+    window = open_window(cfg, args.terminal)
+    interactive = window is not None or (sys.stdin.isatty() and sys.stdout.isatty())
     seconds = args.seconds if args.seconds is not None else (float("inf") if interactive else 10.0)
-    devices = open_devices(cfg, args.sim)
+    try:
+        devices = open_devices(cfg, args.sim)
+    except BaseException:
+        if window is not None:
+            window.close()
+        raise
     state = AlignState(cfg.pattern.grating_low, cfg.pattern.grating_high, gray, devices.camera.exposure_s)
     try:
         if args.scan_waveplate:
@@ -220,7 +270,18 @@ def cmd_align(args) -> int:
             if rotator is None:
                 raise UsageError("--scan-waveplate: no rotation mount configured ([accessories.rotator] port)")
             scan_waveplate(cfg, devices, rotator, state, lambda line: print(line, flush=True))
-        if interactive:
+        if window is not None:
+            full_scale = 2**devices.camera.bit_depth - 1
+            print(f"align: window on {window.display.describe()}; keys go to the window", flush=True)
+
+            def update(s, message):
+                view = window_view(s, full_scale, message)
+                if view is not None:
+                    window.show(view)
+            align_loop(cfg, devices, state, window, update, seconds, args.rate)
+            print(f"align: {state.frames} frames, best contrast {state.best_contrast:.3f}; grating "
+                  f"{state.low}/{state.high}, exposure {state.exposure_s * 1e3:.3f} ms", flush=True)
+        elif interactive:
             console = Console()
             with TerminalKeys() as keys, Live(render(state), console=console, refresh_per_second=8) as live:
                 def update(s, message):
@@ -229,13 +290,19 @@ def cmd_align(args) -> int:
                         console.log(message)
                 align_loop(cfg, devices, state, keys, update, seconds, args.rate)
         else:
+            print(f"align: mirror gray {state.mirror_gray}, grating {state.low}/{state.high}", flush=True)
+
             def update(s, message):
                 f = s.figures
                 print(message or (f"frame {s.frames}: contrast {f.contrast:.3f} (best {s.best_contrast:.3f}), "
                                   f"peak {100 * f.peak_fraction:.0f} %, "
-                                  + (f"period {f.period_px:.2f} px at {f.angle_deg:.1f} deg; " if f.period_px else "")
+                                  + (f"period {f.period_px:.2f} px at {fixed(f.angle_deg, 1)} deg; " if f.period_px else "")
                                   + hint(f)), flush=True)
             align_loop(cfg, devices, state, NoKeys(), update, seconds, args.rate)
     finally:
-        devices.close()
+        try:
+            devices.close()
+        finally:
+            if window is not None:
+                window.close()
     return 0

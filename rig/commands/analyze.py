@@ -12,10 +12,10 @@ import numpy as np
 from analysis.band import Band, find_band, survey_band
 from analysis.carrier import NoFringesError
 from analysis.curve import CurveError, phase_curve
-from analysis.fringe import DEFAULT_METHOD, METHODS, estimate, lsq_model
+from analysis.fringe import estimate, lsq_model
 from analysis.imageio import DEFAULT_NAME_PATTERN, ImageFolderError, list_images, read_image
 from rig.errors import UsageError
-from rig.options import output_folder
+from rig.options import add_method_option, output_folder
 from rig.output.results import curve_summary, plot_curve, versions, write_json, write_phase_csv
 
 BAND_SAMPLES = 8        # frames at distinct grays used to find the band
@@ -23,13 +23,13 @@ PROGRESS_FROM = 20      # show a progress bar for folders of at least this many 
 
 
 def register(command) -> None:
-    p = command("analyze", cmd_analyze, "phase-vs-gray curve from a folder of fringe images")
+    p = command("analyze", cmd_analyze, "phase-vs-gray curve from a folder of fringe images", config=None)
     p.add_argument("source", metavar="SOURCE",
                    help="a run folder written by fringecal, a folder with manifest.csv (gray,file[,time_s]), "
                         "or a folder of images named by gray")
     p.add_argument("--out", required=True, metavar="DIR", help="folder for phase.csv, analysis.json and phase.png")
     p.add_argument("--roi", metavar="x0:x1,y0:y1", help="fringe band in image pixels (default: found automatically)")
-    p.add_argument("--method", default=DEFAULT_METHOD, choices=METHODS, help=f"phase estimator (default {DEFAULT_METHOD})")
+    add_method_option(p)
     p.add_argument("--reference-gray", type=int, default=0, metavar="G", help="gray the phases are relative to (default 0)")
     p.add_argument("--sign", default="auto", choices=("auto", "+1", "-1"),
                    help="auto: the curve rises with gray; +1/-1: keep or flip the measured direction")

@@ -188,11 +188,13 @@ def cmd_predict(args) -> int:
 
 def register(command) -> None:
     """Add ``fringecal compare`` and ``fringecal predict`` to the parser."""
-    p = command("compare", cmd_compare, "overlay curves of one panel at several wavelengths and check the model")
+    p = command("compare", cmd_compare, "overlay curves of one panel at several wavelengths and check the model",
+                config=None)
     p.add_argument("runs", nargs="+", metavar="RUN", help="run folder, folder with phase.csv, or phase.csv; "
                                                           "append @NM when no run.json records the wavelength")
     p.add_argument("--out", metavar="FILE.png", help="also write the overlay figure")
-    p = command("predict", cmd_predict, "predict the curve and lookup table at a wavelength not measured")
+    p = command("predict", cmd_predict, "predict the curve and lookup table at a wavelength not measured",
+                config=None)
     p.add_argument("--from", dest="sources", nargs="+", required=True, metavar="RUN",
                    help="two or more calibrations of the panel (run folders, or PATH@NM)")
     p.add_argument("--wavelength-nm", type=float, required=True, metavar="NM", help="wavelength to predict")

@@ -15,11 +15,12 @@ from analysis.panelmap import fit_surface, parse_grid, tiles
 from analysis.patterns import grating_half, layout_of
 from rig.atomic import write_atomic
 from rig.errors import UsageError
-from rig.options import add_run_options
+from rig.options import add_run_options, add_sweep_options
 from rig.output.figures import map_figure
 from rig.output.lut_files import metadata, write_lut_folder
 from rig.output.results import now_iso, write_json, write_phase_csv
 from rig.output.runs import JournalContents, read_journal
+from rig.run.adaptive import adaptive_settings, adaptive_sweep_steps, finish_model, journal_rows, resumed_settings
 from rig.run.folder import RunFolder
 from rig.run.session import Session, guarded, prepare_run
 from rig.run.stages import auto_exposure, locate, take_dark, tune
@@ -29,6 +30,7 @@ from rig.run.steps import UseRegion, sweep_steps
 def register(command) -> None:
     p = command("map", cmd_map, "calibrate each tile of the panel: maps of its non-uniformity, per-tile tables")
     add_run_options(p)
+    add_sweep_options(p)
     p.add_argument("--grid", metavar="RxC", help="tiles in rows x columns, e.g. 3x3")
     p.add_argument("--resume", metavar="RUN_DIR", help="continue an interrupted map in RUN_DIR")
     p.add_argument("--background-gray", type=int, metavar="G",
@@ -66,6 +68,7 @@ def cmd_map(args) -> int:
         if not 0 <= background <= cfg.gray_max:
             raise UsageError(f"--background-gray: expected a gray level in [0, {cfg.gray_max}], got {background}")
         folder.update(map={"rows": rows, "cols": cols, "background_gray": background, "tiles": {}})
+        adaptive_settings(args, cfg, folder)  # recorded in run.json, read back below like a resumed map's
     return guarded(folder, lambda: _measure(args, cfg, folder))
 
 
@@ -76,6 +79,7 @@ def _measure(args, cfg, folder: RunFolder) -> int:
     journal = folder.path / "journal.jsonl"
     contents = read_journal(journal) if journal.exists() else JournalContents((), None)
     done = contents.checkpoints()
+    settings = resumed_settings(folder, cfg)
     with Session(args, cfg, folder, "fringecal map", contents.last_checkpoint_s(), contents.frames_journaled()) as s:
         if "pair" not in folder.info:
             take_dark(s)
@@ -100,9 +104,15 @@ def _measure(args, cfg, folder: RunFolder) -> int:
                 locate(s, low, high)
                 info["tiles"][tile.name] = {"band": folder.info["band"], "carrier": folder.info["carrier"]}
                 folder.update(map=info)
-            s.engine.run(sweep_steps(cfg, low, high, done, prefix=f"{tile.name}/", stage=f"tile {tile.name}"))
+            prefix = f"{tile.name}/"
+            if settings is None:
+                s.engine.run(sweep_steps(cfg, low, high, done, prefix=prefix, stage=f"tile {tile.name}"))
+            else:
+                rows = journal_rows(r for r in contents.frames() if r["unit"].startswith(prefix))
+                s.engine.run(adaptive_sweep_steps(cfg, low, high, settings, done, rows, prefix=prefix,
+                                                  stage=f"tile {tile.name}", log=s.log))
         bench = s.devices.bench
-    summary = _finish(folder, cfg, grid, bench)
+    summary = _finish(folder, cfg, grid, bench, settings)
     first = summary["range_rad"]
     print(f"{len(grid)} tiles: range {min(first.values()):.3f}..{max(first.values()):.3f} rad "
           f"({(max(first.values()) - min(first.values())) / (2 * np.pi) * 100:.1f} % of 2 pi across the panel)")
@@ -113,7 +123,7 @@ def _measure(args, cfg, folder: RunFolder) -> int:
     return 0
 
 
-def _finish(folder: RunFolder, cfg, grid, bench) -> dict:
+def _finish(folder: RunFolder, cfg, grid, bench, settings=None) -> dict:
     contents = read_journal(folder.path / "journal.jsonl")
     frames = [r for r in contents.frames() if r["purpose"] in ("level", "reference") and r["phase_rad"] is not None]
     layout = layout_of(cfg.pattern)
@@ -127,8 +137,15 @@ def _finish(folder: RunFolder, cfg, grid, bench) -> dict:
                             [r["contrast"] for r in mine], cfg.sweep.reference_gray, None, smooth=True)
         out = folder.path / "tiles" / tile.name
         out.mkdir(parents=True, exist_ok=True)
-        write_phase_csv(out / "phase.csv", curve)
-        lut = build_lut(curve.gray, curve.smooth_rad, curve.std_rad, bit_depth=cfg.modulator.bit_depth)
+        if settings is None:
+            write_phase_csv(out / "phase.csv", curve)
+            lut = build_lut(curve.gray, curve.smooth_rad, curve.std_rad, bit_depth=cfg.modulator.bit_depth)
+        else:  # an adaptive sweep per tile: the table from the tile's model at every gray
+            model = finish_model(journal_rows(mine), cfg, settings)
+            write_phase_csv(out / "phase.csv", curve, model)
+            lut = build_lut(model.gray, model.phase_rad, model.std_rad, bit_depth=cfg.modulator.bit_depth,
+                            smooth=False)
+            summary.setdefault("predicted_table_rms_rad", {})[tile.name] = model.table.rms_rad
         write_lut_folder(out, lut, metadata(lut, f"tiles/{tile.name}/phase.csv", now_iso(), cfg.laser.wavelength_nm))
         tables.append(lut.gray)
         summary["range_rad"][tile.name] = float(curve.summary.range_rad)

@@ -84,7 +84,8 @@ def cmd_pattern(args) -> int:
 
 def register(command) -> None:
     """Add ``fringecal pattern`` to the parser."""
-    p = command("pattern", cmd_pattern, "write a phase pattern through a lookup table as a PNG for the panel")
+    p = command("pattern", cmd_pattern, "write a phase pattern through a lookup table as a PNG for the panel",
+                config="bench config (TOML) giving the panel size; default: the 1064 nm demo bench")
     p.add_argument("--lut", required=True, metavar="DIR", help="table folder written by 'fringecal lut'")
     p.add_argument("--kind", required=True, choices=KINDS, help="what to draw")
     p.add_argument("--out", required=True, metavar="FILE.png", help="PNG to write")

@@ -85,7 +85,8 @@ def report(setup, result) -> str:
 
 def register(command) -> None:
     """Add ``fringecal plan`` to the parser."""
-    p = command("plan", cmd_plan, "plan the split-screen geometry: overlap distance, fringe sampling, a distance")
+    p = command("plan", cmd_plan, "plan the split-screen geometry: overlap distance, fringe sampling, a distance",
+                config="bench config (TOML) the plan starts from (flags override it); default: the 1064 nm demo bench")
     p.add_argument("--wavelength-nm", type=float, metavar="NM", help="laser wavelength (default: from the config)")
     p.add_argument("--pitch-um", type=float, metavar="UM", help="panel pixel pitch")
     p.add_argument("--period-px", type=int, metavar="P", help="grating period in panel pixels")

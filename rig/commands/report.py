@@ -16,5 +16,5 @@ def cmd_report(args) -> int:
 
 def register(command) -> None:
     """Add ``fringecal report`` to the parser."""
-    p = command("report", cmd_report, "figures and a self-contained HTML page of a calibration")
+    p = command("report", cmd_report, "figures and a self-contained HTML page of a calibration", config=None)
     p.add_argument("run_dir", metavar="RUN_DIR", help="run folder (or any folder holding a phase.csv)")

@@ -13,7 +13,8 @@ from rig.errors import UsageError
 
 
 def register(command) -> None:
-    p = command("screens", cmd_screens, "list the displays; --check N shows a test pattern on one and verifies it")
+    p = command("screens", cmd_screens, "list the displays; --check N shows a test pattern on one and verifies it",
+                config="bench config (TOML): the display its panel opens on; --check uses its bit depth and packing")
     p.add_argument("--check", type=int, metavar="N",
                    help="open the pattern window on display N, read the framebuffer back, compare every pixel")
     p.add_argument("--allow-primary", action="store_true",

@@ -10,7 +10,8 @@ from rig.options import load_bench_config, writable
 
 
 def register(command) -> None:
-    p = command("sim-truth", cmd_sim_truth, "write the simulated panel's true phase curve (gray,phase_rad)")
+    p = command("sim-truth", cmd_sim_truth, "write the simulated panel's true phase curve (gray,phase_rad)",
+                config="the simulated bench's config (TOML); default: the 1064 nm demo bench")
     p.add_argument("--out", required=True, metavar="truth.csv", help="CSV file to write")
 
 

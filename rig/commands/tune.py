@@ -21,8 +21,10 @@ def cmd_tune(args) -> int:
             opposite = get_ready(s, cfg.pattern.grating_low, cfg.pattern.grating_high)
             result = tune(s, opposite)
         folder.update(status="tuned", ended=now_iso())
-        print(f"pair {result.low}/{result.high}: contrast {result.contrast:.3f}; the pi step is "
-              f"{result.pi_step_gray:.1f} gray levels; curve in {folder.path / 'tune.csv'} and tune.png")
+        print(f"contrast against the high gray: {folder.path / 'tune.csv'} and tune.png")
+        bench = (" --sim" if args.sim else "") + (f" --config {args.config}" if args.config else "")
+        print(f"next: fringecal sweep{bench} --pair {result.low}:{result.high}   (or --pair {folder.path}: the pair "
+              "this run saved in run.json)")
         return 0
 
     return guarded(folder, body)

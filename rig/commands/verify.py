@@ -63,7 +63,7 @@ class Table:
 # --- (a) linearity -------------------------------------------------------------------------------------------
 def targets_steps(cfg, grays, low: int, high: int, frames: int):
     """Show each mirror gray with the grating pair and return its Measurement (in order)."""
-    yield Stage("verify", len(grays))
+    yield Stage("verify", len(grays), what=f"{len(grays)} mirror grays")
     out = []
     for gray in grays:
         yield ShowSplit(int(gray), low, high)

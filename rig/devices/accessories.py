@@ -149,7 +149,8 @@ def open_accessories(settings, opener=None) -> Accessories:
                 transport = opener(link.port, baudrate=link.baud, timeout=link.timeout_s,
                                    write_timeout=link.timeout_s)
             except (OSError, ValueError) as err:
-                raise UsageError(f"{key}.port: cannot open {link.port} ({err})") from None
+                raise UsageError(f"{key}.port: cannot open {link.port} ({err}); port = \"\" leaves the part out")\
+                    from None
             device = cls(transport, link)
             setattr(bench, role, device)
             try:

@@ -1,10 +1,12 @@
-"""Camera backends behind the rig's Camera protocol: opencv (a device, file or URL), replay (a folder of images) and
-a lab's own class named ``module:Class``; the simulated camera lives in simulators/devices.py.
+"""Camera backends behind the rig's Camera protocol: opencv (a device, file or URL), replay (a folder of images),
+genicam (rig/devices/genicam.py) and a lab's own class named ``module:Class``; the simulated camera lives in
+simulators/devices.py.
 
-``CameraBase`` holds what every backend shares: range checks of exposure and gain, the ROI crop, frame numbering,
-the closed state and the Frame metadata. A backend writes only the ``_do_`` methods. Frames are stamped on the
-rig's clock (``timestamp_s`` = middle of the exposure); where a backend cannot know when a frame was exposed it
-says so in ``exposure_timestamps`` and the run discards ``camera.discard_frames`` frames after each pattern change.
+``CameraBase`` holds what every backend shares: range checks of exposure and gain, the ROI (set on the device where
+the backend can, else cropped), frame numbering, the closed state and the Frame metadata. A backend writes only the
+``_do_`` methods. Frames are stamped on the rig's clock (``timestamp_s`` = middle of the exposure); where a backend
+cannot know when a frame was exposed it says so in ``exposure_timestamps`` and the run discards
+``camera.discard_frames`` frames after each pattern change.
 """
 
 from __future__ import annotations
@@ -42,6 +44,7 @@ class CameraBase:
         self.clock = clock or MonotonicClock()
         self._exposure_s, self._gain_db = exposure_s, gain_db
         self._roi: Rect | None = None
+        self._delivered = Rect(0, width_px, 0, height_px)  # the part of the frame the device sends
         self._sequence = -1
         self._closed = False
 
@@ -77,6 +80,7 @@ class CameraBase:
     def roi(self, rect: Rect | None) -> None:
         if rect is not None and not (0 <= rect.x0 < rect.x1 <= self.width_px and 0 <= rect.y0 < rect.y1 <= self.height_px):
             raise ValueError(f"{self.name}: roi {rect} lies outside the {self.width_px}x{self.height_px} sensor")
+        self._delivered = self._do_set_roi(rect)
         self._roi = rect
 
     def grab(self, timeout_s: float = 1.0) -> Frame:
@@ -86,13 +90,14 @@ class CameraBase:
         if not timeout_s > 0:
             raise ValueError(f"{self.name}: timeout_s expected > 0, got {timeout_s!r}")
         image, t_mid = self._do_grab(timeout_s)
-        if image.shape != (self.height_px, self.width_px):
-            raise ConnectionError(f"{self.name}: frame of {image.shape[1]}x{image.shape[0]} px from a "
-                                  f"{self.width_px}x{self.height_px} camera")
+        d = self._delivered
+        if image.shape != (d.height, d.width):
+            raise ConnectionError(f"{self.name}: frame of {image.shape[1]}x{image.shape[0]} px where "
+                                  f"{d.width}x{d.height} were due")
         image = image.astype(np.uint16, copy=False)
-        if self._roi is not None:
+        if self._roi is not None and self._roi != d:
             r = self._roi
-            image = np.ascontiguousarray(image[r.y0:r.y1, r.x0:r.x1])
+            image = np.ascontiguousarray(image[r.y0 - d.y0:r.y1 - d.y0, r.x0 - d.x0:r.x1 - d.x0])
         self._sequence += 1
         return Frame(image, t_mid, self._exposure_s, self._gain_db, self.bit_depth, self._sequence, True)
 
@@ -114,6 +119,11 @@ class CameraBase:
     def _do_set_gain(self, gain_db: float) -> float:
         """Apply the gain; return the value the device took."""
         return gain_db
+
+    def _do_set_roi(self, rect: Rect | None) -> Rect:
+        """Set ``rect`` (None: the whole frame) on the device if it can; return the part of the frame it will send
+        from now on (covering ``rect``; the rest is cropped here). By default the whole frame: crop everything."""
+        return Rect(0, self.width_px, 0, self.height_px)
 
     def _do_close(self) -> None:
         pass
@@ -278,4 +288,7 @@ def open_camera(settings, clock=None):
         return OpenCVCamera(settings, clock)
     if settings.backend == "replay":
         return ReplayCamera(settings, clock)
+    if settings.backend == "genicam":
+        from rig.devices.genicam import GenicamCamera  # Aravis is an optional extra
+        return GenicamCamera(settings, clock)
     return load_backend(settings)

@@ -39,7 +39,9 @@ class Camera(Protocol):
     gain_db: float
 
     def grab(self, timeout_s: float = 1.0) -> Frame:
-        """Return the next frame exposed after the call; raise TimeoutError if none arrives in ``timeout_s``."""
+        """Return the next frame exposed after the call; raise TimeoutError if none arrives in ``timeout_s``.
+
+        A camera in software-trigger mode (``camera.trigger = "software"``) triggers one exposure and returns it."""
 
     def close(self) -> None:
         """Stop acquisition and release the device."""

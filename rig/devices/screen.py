@@ -16,6 +16,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from analysis.patterns import check_panel_pattern
 from rig.errors import UsageError
 
 
@@ -150,16 +151,7 @@ class PygletScreen:
         """Display ``pattern`` (height x width gray levels, integers in the panel's range) pixel for pixel."""
         if self._window is None:
             raise ConnectionError("screen: show after close")
-        pattern = np.asarray(pattern)
-        if pattern.shape != (self.height_px, self.width_px):
-            raise ValueError(f"screen: expected a {self.height_px}x{self.width_px} pattern (rows x columns), "
-                             f"got {pattern.shape}")
-        if pattern.dtype.kind not in "ui":
-            raise ValueError(f"screen: expected integer gray levels, got {pattern.dtype}")
-        if pattern.size and (pattern.min() < 0 or pattern.max() >= 2**self.bit_depth):
-            raise ValueError(f"screen: gray levels must lie in [0, {2**self.bit_depth - 1}] for a "
-                             f"{self.bit_depth}-bit panel, got {pattern.min()}..{pattern.max()}")
-        self._do_show(pattern)
+        self._do_show(check_panel_pattern(pattern, self.width_px, self.height_px, self.bit_depth))
 
     def show_checked(self, pattern: np.ndarray) -> np.ndarray:
         """Display ``pattern`` like ``show`` and return the framebuffer as presented (H x W x 3 uint8, row 0 at the
@@ -229,21 +221,24 @@ class PygletScreen:
             self._window = None
 
 
-def open_screen(mod, allow_primary: bool = False) -> PygletScreen:
-    """Open the panel window that the ``[modulator]`` config section ``mod`` describes."""
+def open_screen(mod, allow_primary: bool = False):
+    """Open the panel the ``[modulator]`` config section ``mod`` describes: the pattern window, or the lab's
+    ``module:Class`` for a panel driven by its maker's library (rig/devices/panels.py)."""
+    if mod.backend != "window":
+        from rig.devices.panels import load_screen_backend
+        return load_screen_backend(mod)
     display = choose_display(list_displays(), mod.display, mod.width_px, mod.height_px,
                              allow_primary or mod.allow_primary)
     return PygletScreen(display, mod.bit_depth, mod.rgb_shift_bits)
 
 
 class Tee:
-    """Shows every pattern on the window and on a second screen (the simulated panel a simulated camera watches),
+    """Shows every pattern on the panel (the window or a plug-in) and on a second screen (the simulated panel a simulated camera watches),
     so a run can drive the real window while the simulator supplies the frames."""
 
-    def __init__(self, window: PygletScreen, twin):
+    def __init__(self, window, twin):
         self.window, self.twin = window, twin
         self.width_px, self.height_px, self.bit_depth = window.width_px, window.height_px, window.bit_depth
-        self.display = window.display
 
     def show(self, pattern: np.ndarray) -> None:
         """Show ``pattern`` on the window, then hand it to the twin."""

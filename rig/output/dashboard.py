@@ -64,6 +64,7 @@ class RunState:
         self.title = title
         self.lock = threading.Lock()
         self.stage, self.total, self.done = "starting", 0, 0
+        self.what = ""  # the stage's units in words
         self.stage_started = time.monotonic()
         self.started = time.monotonic()
         self.pattern = None
@@ -80,6 +81,7 @@ class RunState:
             kind = event.get("event")
             if kind == "stage":
                 self.stage, self.total, self.done = event["name"], event["total"], event.get("done", 0)
+                self.what = event.get("what", "")
                 self.stage_started = time.monotonic()
                 self._done_at_start = self.done
                 self.log.append(f"stage: {event['name']}")
@@ -87,6 +89,8 @@ class RunState:
                 self.pattern = (event["mirror_gray"], event["low"], event["high"])
             elif kind == "frame":
                 self.last = event
+                if event.get("purpose") == "exposure":  # each trial is one step of the exposure stage
+                    self.done += 1
                 self.profile = event.get("profile") or self.profile
                 if event.get("phase_rad") is not None:
                     if event["purpose"] == "reference":
@@ -151,7 +155,7 @@ class LiveDashboard:
             progress = Table.grid(padding=(0, 1))
             progress.add_row(bar, Text(f"{s.done}/{s.total}  elapsed {_duration(time.monotonic() - s.started)}  "
                                        f"ETA {_duration(s.eta_s())}"))
-            top.add_row("stage", s.stage)
+            top.add_row("stage", f"{s.stage}: {s.what}" if s.what else s.stage)
             top.add_row("progress", progress)
             if s.pattern:
                 top.add_row("pattern", f"mirror gray {s.pattern[0]}, grating {s.pattern[1]}/{s.pattern[2]}")
@@ -161,6 +165,7 @@ class LiveDashboard:
                 peak = Text(f"{100 * last['peak_fraction']:.0f} % of full scale")
                 if last.get("saturated_px"):
                     peak.append(f"  SATURATED: {last['saturated_px']} px", style="bold red")
+                top.add_row("frame", visit(last))
                 top.add_row("contrast", contrast)
                 top.add_row("peak", peak)
             if s.profile:
@@ -178,6 +183,11 @@ class LiveDashboard:
                      title_align="left")
 
 
+def visit(frame: dict) -> str:
+    """The gray a frame was taken at, marked when it was a visit of the drift reference."""
+    return f"gray {frame.get('gray')}" + (" (drift reference)" if frame.get("purpose") == "reference" else "")
+
+
 class PlainProgress:
     """Progress as plain lines (no escape codes) for logs and pipes: one line per stage, per ~5 % and per fault."""
 
@@ -191,15 +201,19 @@ class PlainProgress:
         s = self.state
         if kind == "stage":
             self._last_percent = -100
-            self._print(f"[{event['name']}] {event['total']} units to measure"
+            self._print(f"[{event['name']}] {event.get('what') or str(event['total']) + ' steps'}"
                         + (f", {event['done']} already done" if event.get("done") else ""))
+        elif kind == "frame" and event.get("purpose") == "exposure":
+            saturated = f", {event['saturated_px']} px saturated" if event.get("saturated_px") else ""
+            self._print(f"[exposure] trial {s.done}: {event['exposure_s'] * 1e3:.3f} ms, peak "
+                        f"{100 * event['peak_fraction']:.0f}% of full scale{saturated}")
         elif kind == "unit" and s.total:
             percent = 100 * event["done"] // s.total
             if percent >= self._last_percent + 5 or event["done"] == s.total:
                 self._last_percent = percent
                 last = s.last
                 contrast = "" if last.get("contrast") is None else f" contrast {last['contrast']:.3f}"
-                self._print(f"[{s.stage}] {event['done']}/{s.total} ({percent}%) gray {last.get('gray')}"
+                self._print(f"[{s.stage}] {event['done']}/{s.total} ({percent}%) {visit(last)}"
                             f"{contrast} peak {100 * last.get('peak_fraction', 0):.0f}% ETA {_duration(s.eta_s())}")
         elif kind == "fault":
             self._print(f"[{s.stage}] camera {event['kind']} at gray {event['gray']} (#{event['count']}); retrying")

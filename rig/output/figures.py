@@ -84,9 +84,16 @@ def prediction_figure(sources: list[tuple[float, np.ndarray, np.ndarray]], wavel
     return _png(fig)
 
 
-def curve_figure(gray, phase, std, smooth=None, truth=None, label: str = "measured") -> bytes:
-    """The calibration curve with 2-sigma error bars, its smooth monotone fit (if any) and (simulator) the truth."""
+def curve_figure(gray, phase, std, smooth=None, truth=None, label: str = "measured", band=None) -> bytes:
+    """The calibration curve with 2-sigma error bars, its smooth monotone fit (if any), an adaptive sweep's model
+    ``band`` = (gray, phase, std) drawn as its mean and 2-sigma band (if any) and (simulator) the truth."""
     fig, (ax,) = _axes()
+    if band is not None:
+        g, mean, sd = (np.asarray(a, float) for a in band)
+        # the band is a few mrad wide on a curve of several rad: drawn at 50x so that it can be seen
+        ax.fill_between(g, (mean - 100 * sd) / np.pi, (mean + 100 * sd) / np.pi, color=ACCENT, alpha=0.25, lw=0,
+                        label="model ±2σ (band drawn 50× wide)")
+        ax.plot(g, mean / np.pi, "-", lw=1.0, color=ACCENT, label="model")
     ax.errorbar(gray, phase / np.pi, yerr=2 * std / np.pi, fmt="o", ms=2.2, lw=0.7, capsize=0, color=INK,
                 label=f"{label} (±2σ)")
     if smooth is not None:

@@ -66,17 +66,29 @@ def _figures(folder: Path, info: dict, analysis: dict, table: dict) -> tuple[lis
     truth = None
     if truth_rows:
         truth = (np.array([int(r["gray"]) for r in truth_rows]), np.array([float(r["phase_rad"]) for r in truth_rows]))
-    figures.append(Figure("curve", "Calibration curve",
-                          "Phase of every measured gray level relative to the reference gray, with 2σ error bars "
-                          "from the frames' scatter, and the smooth monotone fit"
-                          + (" and the simulated panel's true curve." if truth else "."),
-                          curve_figure(c.gray, c.phase_rad, c.phase_std_rad, smooth, truth)))
-    residual = c.phase_rad - smooth
+    model_rows = _csv_rows(folder / "model.csv")
+    measured = np.ones(c.gray.size, bool) if c.measured is None else c.measured
+    if c.measured is not None and model_rows:  # an adaptive sweep: measured levels and the model between them
+        band = tuple(np.array([float(r[k]) for r in model_rows]) for k in ("gray", "phase_rad", "phase_std_rad"))
+        smooth = np.interp(c.gray, band[0], band[1])
+        figures.append(Figure("curve", "Calibration curve (adaptive sweep)",
+                              f"The {int(measured.sum())} measured gray levels with 2σ error bars, and the model "
+                              "through them with its 2σ band (drawn 50 times wide); every other level comes from the "
+                              "model" + (", beside the simulated panel's true curve." if truth else "."),
+                              curve_figure(c.gray[measured], c.phase_rad[measured], c.phase_std_rad[measured], None,
+                                           truth, band=band)))
+    else:
+        figures.append(Figure("curve", "Calibration curve",
+                              "Phase of every measured gray level relative to the reference gray, with 2σ error bars "
+                              "from the frames' scatter, and the smooth monotone fit"
+                              + (" and the simulated panel's true curve." if truth else "."),
+                              curve_figure(c.gray, c.phase_rad, c.phase_std_rad, smooth, truth)))
+    residual = (c.phase_rad - smooth)[measured]
     numbers["fit_rms_mrad"] = 1e3 * float(np.sqrt(np.mean(residual**2)))
     figures.append(Figure("residuals", "Residuals against the smooth fit",
                           f"Measured minus fit: {numbers['fit_rms_mrad']:.1f} mrad RMS. Points outside the grey band "
                           "(2σ of the measurement) show structure the fit does not follow, or outliers.",
-                          residual_figure(c.gray, residual, c.phase_std_rad)))
+                          residual_figure(c.gray[measured], residual, c.phase_std_rad[measured])))
     if table.get("gray"):
         gray = np.asarray(table["gray"], int)
         target = np.asarray(table["target_phase_rad"], float)
@@ -189,7 +201,16 @@ def _summary(info: dict, analysis: dict, table: dict, numbers: dict, curve) -> l
                                                    if info.get("wavelength_nm") else "not recorded")]
     span = float(curve.phase_rad[-1] - curve.phase_rad[0])
     rows.append(("phase range", f"{span:.3f} rad ({span / math.pi:.2f} π) over grays {curve.gray[0]}..{curve.gray[-1]}"
-                                f", {curve.gray.size} levels measured"))
+                                f", {curve.gray.size if curve.measured is None else int(curve.measured.sum())} "
+                                "levels measured"))
+    if "adaptive" in analysis:
+        a = analysis["adaptive"]
+        rows.append(("adaptive sweep", f"{a['levels_measured']} levels measured, the rest from the model; the table's "
+                                       f"predicted error {1e3 * a['predicted_table_rms_rad']:.2f} mrad RMS (tolerance "
+                                       f"{1e3 * a['tolerance_rad']:g} mrad, budget {a['budget_levels']} levels)"))
+    if "table_error_vs_truth_rad" in analysis:
+        rows.append(("table error against the simulator's truth",
+                     f"{1e3 * analysis['table_error_vs_truth_rad']:.2f} mrad RMS over its entries"))
     first = analysis.get("first_gray_2pi")
     if "first_gray_2pi" in analysis:
         rows.append(("2π first reached", f"gray {first}" if first is not None else "not reached"))

@@ -1,6 +1,8 @@
 """Result files of a phase curve, the same whether it came from `fringecal analyze` or from a run.
 
-    phase.csv      gray,phase_rad,phase_std_rad,contrast,n_frames (one row per measured gray, ascending)
+    phase.csv      gray,phase_rad,phase_std_rad,contrast,n_frames (one row per measured gray, ascending); an adaptive
+                   sweep's has a row for every gray and a sixth column, source: 'measured' (the level's own
+                   figures) or 'model' (the model's phase and std; contrast empty, n_frames 0)
     analysis.json  method, band, carrier, drift model, range, warnings, versions
     phase.png      the curve with its uncertainties
 """
@@ -25,10 +27,11 @@ from rig.errors import UsageError
 from rig.output.figures import curve_figure, tuning_figure
 
 PHASE_HEADER = ("gray", "phase_rad", "phase_std_rad", "contrast", "n_frames")
+SOURCE_COLUMN = "source"
 
 
 def now_iso() -> str:
-    return dt.datetime.now(dt.timezone.utc).astimezone().isoformat(timespec="seconds")
+    return dt.datetime.now(dt.timezone.utc).isoformat(timespec="seconds")
 
 
 def versions() -> dict:
@@ -38,12 +41,23 @@ def versions() -> dict:
             "scipy": scipy.__version__, "opencv": cv2.__version__}
 
 
-def write_phase_csv(path: Path, curve) -> Path:
-    """phase.csv of a PhaseCurve."""
+def write_phase_csv(path: Path, curve, model=None) -> Path:
+    """phase.csv of a PhaseCurve; with an adaptive sweep's ``model`` (rig.run.adaptive.ModelCurve), every gray."""
     buf = io.StringIO()
-    buf.write(",".join(PHASE_HEADER) + "\n")
-    for g, p, s, c, n in zip(curve.gray, curve.phase_rad, curve.std_rad, curve.contrast, curve.n_frames):
-        buf.write(f"{int(g)},{p:.6f},{s:.6f},{c:.4f},{int(n)}\n")
+    if model is None:
+        buf.write(",".join(PHASE_HEADER) + "\n")
+        for g, p, s, c, n in zip(curve.gray, curve.phase_rad, curve.std_rad, curve.contrast, curve.n_frames):
+            buf.write(f"{int(g)},{p:.6f},{s:.6f},{c:.4f},{int(n)}\n")
+        return write_atomic(path, buf.getvalue().encode())
+    buf.write(",".join(PHASE_HEADER + (SOURCE_COLUMN,)) + "\n")
+    measured = {int(g): row for g, *row in zip(curve.gray, curve.phase_rad, curve.std_rad, curve.contrast,
+                                                curve.n_frames)}
+    for g, p, s in zip(model.gray, model.phase_rad, model.std_rad):
+        if int(g) in measured:
+            mp, ms, c, n = measured[int(g)]
+            buf.write(f"{int(g)},{mp:.6f},{ms:.6f},{c:.4f},{int(n)},measured\n")
+        else:
+            buf.write(f"{int(g)},{p:.6f},{s:.6f},,0,model\n")
     return write_atomic(path, buf.getvalue().encode())
 
 
@@ -78,10 +92,15 @@ def write_json(path: Path, data: dict) -> Path:
     return write_atomic(path, (json.dumps(data, indent=2) + "\n").encode())
 
 
-def plot_curve(path: Path, curve, method: str, truth=None) -> Path:
-    """phase.png: the measured curve with error bars (and the simulator's truth when given as (gray, phase))."""
-    return write_atomic(path, curve_figure(curve.gray, curve.phase_rad, curve.std_rad, curve.smooth_rad, truth,
-                                           label=f"measured, {method}"))
+def plot_curve(path: Path, curve, method: str, truth=None, model=None) -> Path:
+    """phase.png: the measured curve with error bars (and the simulator's truth when given as (gray, phase)); an
+    adaptive sweep's model with its 2-sigma band in place of the smooth fit."""
+    if model is None:
+        return write_atomic(path, curve_figure(curve.gray, curve.phase_rad, curve.std_rad, curve.smooth_rad, truth,
+                                               label=f"measured, {method}"))
+    return write_atomic(path, curve_figure(curve.gray, curve.phase_rad, curve.std_rad, None, truth,
+                                           label=f"measured, {method}",
+                                           band=(model.gray, model.phase_rad, model.std_rad)))
 
 
 def plot_tuning(path: Path, curve: list[tuple[int, float]], low: int, best: int) -> Path:
@@ -91,13 +110,15 @@ def plot_tuning(path: Path, curve: list[tuple[int, float]], low: int, best: int)
 
 @dataclass(frozen=True, eq=False)
 class MeasuredCurve:
-    """The columns of a phase.csv: gray levels, phase (rad), its std (rad), fringe contrast, frames averaged."""
+    """The columns of a phase.csv: gray levels, phase (rad), its std (rad), fringe contrast, frames averaged, and
+    (an adaptive sweep's) which rows were measured rather than modelled."""
 
     gray: np.ndarray
     phase_rad: np.ndarray
     phase_std_rad: np.ndarray
     contrast: np.ndarray
     n_frames: np.ndarray
+    measured: np.ndarray | None = None
 
 
 def read_phase_csv(path: str | Path) -> MeasuredCurve:
@@ -111,19 +132,31 @@ def read_phase_csv(path: str | Path) -> MeasuredCurve:
         raise UsageError(f"PHASE_CSV: cannot read {path} as text ({err.__class__.__name__})") from None
     rows = [row for row in csv.reader(text.splitlines()) if row]
     header = tuple(cell.strip() for cell in rows[0]) if rows else ()
-    if header != PHASE_HEADER:
-        raise UsageError(f"PHASE_CSV: {path}: expected header {','.join(PHASE_HEADER)}, "
+    if header not in (PHASE_HEADER, PHASE_HEADER + (SOURCE_COLUMN,)):
+        raise UsageError(f"PHASE_CSV: {path}: expected header {','.join(PHASE_HEADER)}[,{SOURCE_COLUMN}], "
                          f"got {','.join(header) or 'an empty file'}")
     if len(rows) < 3:
         raise UsageError(f"PHASE_CSV: {path}: expected at least 2 rows of measured gray levels, got {len(rows) - 1}")
     columns = [[] for _ in PHASE_HEADER]
+    measured = []
     for line, row in enumerate(rows[1:], start=2):
-        if len(row) != len(PHASE_HEADER):
-            raise UsageError(f"PHASE_CSV: {path} line {line}: expected {len(PHASE_HEADER)} values, got {len(row)}")
+        if len(row) != len(header):
+            raise UsageError(f"PHASE_CSV: {path} line {line}: expected {len(header)} values, got {len(row)}")
+        where = f"{path} line {line}"
+        if len(header) > len(PHASE_HEADER):
+            source = row[-1].strip()
+            if source not in ("measured", "model"):
+                raise UsageError(f"PHASE_CSV: {where}: column {SOURCE_COLUMN} expected 'measured' or 'model', "
+                                 f"got {source!r}")
+            measured.append(source == "measured")
         for name, cell, column in zip(PHASE_HEADER, row, columns):
-            column.append(_number(cell, name, integer=name in ("gray", "n_frames"), where=f"{path} line {line}"))
+            if name == "contrast" and measured and not measured[-1] and not cell.strip():
+                column.append(math.nan)  # a modelled level has no fringes of its own
+                continue
+            column.append(_number(cell, name, integer=name in ("gray", "n_frames"), where=where))
     curve = MeasuredCurve(*(np.asarray(c, dtype=np.int64 if n in ("gray", "n_frames") else float)
-                            for n, c in zip(PHASE_HEADER, columns)))
+                            for n, c in zip(PHASE_HEADER, columns)),
+                          measured=np.asarray(measured, bool) if measured else None)
     if np.any(curve.phase_std_rad < 0):
         line = int(np.flatnonzero(curve.phase_std_rad < 0)[0]) + 2
         raise UsageError(f"PHASE_CSV: {path} line {line}: column phase_std_rad expected a std >= 0")

@@ -1,7 +1,9 @@
 """The run loop: executes step generators on a screen and a camera, analyses frames off the acquisition path, journals them.
 
 Contract:
-- Frames exposed before the settle deadline of the last pattern change are discarded, never analysed.
+- Frames exposed before the settle deadline of the last pattern change are discarded, never analysed. A camera in
+  software-trigger mode (``camera.trigger``) starts one exposure per grab, and the engine grabs only after the
+  deadline, so each needed frame is exactly one exposure and none is discarded.
 - Camera timeouts and incomplete frames are retried with a bounded back-off and counted; ``MAX_RETRIES`` failures in
   a row, or a camera that is gone, raise ``DeviceFault`` after everything analysed so far has been journaled.
 - Analysis runs in one worker thread and saving (frame crops, journal lines) in a second, each in submission order,
@@ -133,7 +135,8 @@ class Engine:
             return None
         if isinstance(step, Stage):
             self._units_done, self._stage_total = step.done, step.total
-            self.publish({"event": "stage", "name": step.name, "total": step.total, "done": step.done})
+            self.publish({"event": "stage", "name": step.name, "total": step.total, "done": step.done,
+                          "what": step.what})
             return None
         raise TypeError(f"step: expected one of the step types of rig.run.steps, got {step!r}")
 

@@ -52,8 +52,8 @@ class Devices:
 def open_devices(cfg, sim: bool, start_s: float = 0.0) -> Devices:
     """Open the bench the config describes; ``start_s`` continues a simulated run's time line.
 
-    ``sim`` (--sim): the whole bench is simulated. Otherwise the panel is a window on ``modulator.display`` and the
-    camera comes from ``camera.backend``; a 'sim' camera watches the simulated bench, which is shown each pattern
+    ``sim`` (--sim): the whole bench is simulated. Otherwise the panel is a window on ``modulator.display`` (or the
+    ``modulator.backend`` plug-in) and the camera comes from ``camera.backend``; a 'sim' camera watches the simulated bench, which is shown each pattern
     the window shows. Serial accessories with a port configured are opened and checked.
     """
     if sim:
@@ -70,7 +70,8 @@ def open_devices(cfg, sim: bool, start_s: float = 0.0) -> Devices:
     try:
         window = open_screen(cfg.modulator)
         opened.append(window)
-        identity = {"screen": window.display.describe()}
+        identity = {"screen": window.display.describe() if hasattr(window, "display") else
+                    f"{getattr(window, 'name', 'panel')} ({cfg.modulator.backend})"}
         if cfg.camera.backend == "sim":
             from simulators.bench import Bench
             from simulators.devices import SimCamera, SimScreen
@@ -104,7 +105,8 @@ class Session:
     def __init__(self, args, cfg, folder: RunFolder, title: str, start_s: float = 0.0, frames_before: int = 0):
         self.cfg, self.folder = cfg, folder
         self.devices = open_devices(cfg, args.sim, start_s)
-        folder.update(devices={**folder.info.get("devices", {}), "identity": self.devices.identity})
+        folder.update(devices={**folder.info.get("devices", {}), "identity": self.devices.identity},
+                      method=args.method)
         cam = self.devices.camera
         self.analyzer = FrameAnalyzer(2**cam.bit_depth - 1, dark_adu=folder.info.get("dark_adu", 0.0),
                                       method=args.method)

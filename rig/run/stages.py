@@ -9,11 +9,14 @@ import numpy as np
 from analysis.band import Band
 from analysis.carrier import Carrier, NoFringesError
 from analysis.curve import CurveError, phase_curve
-from analysis.lut import build_lut
+from analysis.adaptive import table_error_rad
+from analysis.lut import build_lut, monotone_cubic
 from rig.output.lut_files import metadata, write_lut_folder
+from rig.output.numbers import fixed
 from rig.output.report import write_report
 from rig.output.results import curve_summary, now_iso, plot_curve, plot_tuning, write_json, write_phase_csv
 from rig.output.runs import read_journal
+from rig.run.adaptive import AdaptiveSettings, adaptive_sweep_steps, finish_model, journal_rows
 from rig.run.folder import RunFolder
 from rig.run.session import Session
 from rig.run.steps import StepError, exposure_steps, locate_steps, opposite_gray, sweep_steps, tune_steps, warmup_steps
@@ -90,7 +93,7 @@ def locate(s: Session, low: int, high: int) -> int:
                         band_survey={"fringe_count": survey.fringe_count, "period_spread": survey.period_spread,
                                      "contrast": survey.contrast})
         s.log(f"fringe band x {b.x0}..{b.x1}, y {b.y0}..{b.y1}: {survey.fringe_count:.0f} fringes of "
-              f"{c.period_px:.2f} px at {c.angle_deg:.1f} deg")
+              f"{c.period_px:.2f} px at {fixed(c.angle_deg, 1)} deg")
         grays = [m.results[0].gray for m in measurements]
         phases = [s.analyzer(img, g, "locate", 0.0, 0).phase_rad for img, g in zip(images, grays)]
         return opposite_gray(grays, phases, s.cfg.sweep.reference_gray)
@@ -122,8 +125,8 @@ def tune(s: Session, opposite: int):
         raise StepError(f"tune: the best fringe contrast {result.contrast:.3f} is below {MIN_TUNED_CONTRAST}; "
                         "rotate the polarisation onto the panel's director (half-wave plate), check that the first "
                         "order overlaps the mirror half on the camera, and check the exposure")
-    s.log(f"pair {result.low}/{result.high}: contrast {result.contrast:.3f}, pi step {result.pi_step_gray:.1f} grays"
-          f" ({result.measurements} pairs measured)")
+    s.log(f"grating pair {result.low}/{result.high}: contrast {result.contrast:.3f}; a π phase step is "
+          f"{result.pi_step_gray:.1f} gray levels ({result.measurements} pairs measured)")
     return result
 
 
@@ -147,23 +150,28 @@ def warm_up(s: Session, low: int, high: int, minutes: float) -> None:
         s.log(message)
 
 
-def sweep(s: Session, low: int, high: int, done=frozenset()) -> None:
+def sweep(s: Session, low: int, high: int, done=frozenset(), adaptive: AdaptiveSettings | None = None) -> None:
     """Sweep stage: the fringe phase of every mirror gray at the grating pair ``low``/``high``, with drift references;
-    units whose checkpoint is in ``done`` are skipped (a resumed run).
+    units whose checkpoint is in ``done`` are skipped (a resumed run). With ``adaptive`` settings only the levels the
+    model asks for are measured (rig/run/adaptive.py), each choice journaled.
 
     Writes ``pair`` into run.json, and a journal line per frame and per finished unit (frame crops in frames/);
     returns nothing.
     """
     s.folder.update(pair={**s.folder.info.get("pair", {}), "low": low, "high": high})
-    s.engine.run(sweep_steps(s.cfg, low, high, done))
+    if adaptive is None:
+        s.engine.run(sweep_steps(s.cfg, low, high, done))
+        return
+    rows = journal_rows(read_journal(s.folder.path / "journal.jsonl").frames()) if done else []
+    s.engine.run(adaptive_sweep_steps(s.cfg, low, high, adaptive, done, rows, log=s.log))
 
 
-def finish(folder: RunFolder, cfg, method: str, bench=None) -> dict:
+def finish(folder: RunFolder, cfg, method: str, bench=None, adaptive: AdaptiveSettings | None = None) -> dict:
     """Finish stage: the phase curve (and its uncertainty) and the lookup table from the journal's frames; on the
-    simulator, the error against the true curve.
+    simulator, the error against the true curve. An adaptive sweep's table comes from its model at every gray.
 
-    Writes phase.csv, phase.png, manifest.csv, lut/, analysis.json, report.html (and truth.csv on the simulator) and
-    ``status`` complete into run.json; returns the summary that analysis.json holds.
+    Writes phase.csv, phase.png, manifest.csv, lut/, analysis.json, report.html (and truth.csv on the simulator; an
+    adaptive sweep also model.csv) and ``status`` complete into run.json; returns the summary that analysis.json holds.
     """
     contents = read_journal(folder.path / "journal.jsonl")
     frames = [r for r in contents.frames() if r["purpose"] in ("level", "reference") and r["phase_rad"] is not None]
@@ -182,6 +190,8 @@ def finish(folder: RunFolder, cfg, method: str, bench=None) -> dict:
     b, c = folder.info["band"], folder.info["carrier"]
     summary = curve_summary(curve, Band(b["x0"], b["x1"], b["y0"], b["y1"]),
                             Carrier(c["fx"], c["fy"], c["sharpness"]), method, warnings, "time_s")
+    model = finish_model(journal_rows(frames), cfg, adaptive) if adaptive is not None else None
+    summary["sweep"] = sweep_figures(frames)
     truth = None
     if bench is not None:
         grays, phase = bench.true_curve()
@@ -189,20 +199,39 @@ def finish(folder: RunFolder, cfg, method: str, bench=None) -> dict:
         truth = (grays, phase)
         err = curve.phase_rad - phase[curve.gray]
         summary["truth_rms_error_rad"] = float(np.sqrt(np.mean((err - err.mean()) ** 2)))
-    write_phase_csv(folder.path / "phase.csv", curve)
-    plot_curve(folder.path / "phase.png", curve, method, truth)
+    write_phase_csv(folder.path / "phase.csv", curve, model)
+    if model is not None:
+        folder.write_csv("model.csv", ["gray", "phase_rad", "phase_std_rad", "measured"],
+                         ((int(g), f"{p:.6f}", f"{e:.6f}", int(m))
+                          for g, p, e, m in zip(model.gray, model.phase_rad, model.std_rad, model.measured)))
+        summary["adaptive"] = model.summary(adaptive)
+    plot_curve(folder.path / "phase.png", curve, method, truth, model)
     folder.write_manifest(contents.frames())
-    lut = build_lut(curve.gray, curve.smooth_rad if curve.smooth_rad is not None else curve.phase_rad,
-                    curve.std_rad, bit_depth=cfg.modulator.bit_depth)
+    if model is None:
+        table_input = (curve.gray, curve.smooth_rad if curve.smooth_rad is not None else curve.phase_rad, curve.std_rad)
+    else:
+        table_input = (model.gray, model.phase_rad, model.std_rad)
+    lut = build_lut(*table_input, bit_depth=cfg.modulator.bit_depth, smooth=model is None)
+    if truth is not None:
+        estimate = monotone_cubic(table_input[0], table_input[1], truth[0])
+        # Until the direction is established (the blazed-grating probe), the curve is made to rise; the table's
+        # error is then judged against the truth in the curve's direction, which is how the table was built.
+        turn = -1.0 if (estimate[-1] - estimate[0]) * (truth[1][-1] - truth[1][0]) < 0 else 1.0
+        summary["table_error_vs_truth_rad"] = table_error_rad(lut.gray, estimate, turn * truth[1])
     (folder.path / "lut").mkdir(exist_ok=True)
     meta = metadata(lut, "phase.csv", now_iso(), cfg.laser.wavelength_nm)
+    if model is not None:
+        meta.update(method=f"adaptive sweep: {summary['adaptive']['model']}, at every gray; nearest gray per target",
+                    predicted_rms_error_rad=model.table.rms_rad)
     temperatures = [r["temperature_c"] for r in frames if r.get("temperature_c") is not None]
     if temperatures:  # a probe was fitted: every table says at what temperature it was measured
         meta["temperature_c"] = summary["temperature_c"] = float(np.mean(temperatures))
         summary["temperature_range_c"] = [float(min(temperatures)), float(max(temperatures))]
     write_lut_folder(folder.path / "lut", lut, meta)
     summary["lut"] = {"folder": "lut", "window_gray": list(lut.window), "distinct_grays": lut.distinct_grays,
-                      "rms_linearity_rad": lut.rms_linearity_rad}
+                      "rms_linearity_rad": lut.rms_linearity_rad, "range_rad": lut.range_rad, "levels": lut.levels}
+    if model is not None:
+        summary["lut"]["predicted_rms_error_rad"] = model.table.rms_rad
     write_json(folder.path / "analysis.json", summary)
     folder.update(status="complete", ended=now_iso(), range_rad=summary["range_rad"],
                   first_gray_2pi=summary["first_gray_2pi"], temperature_c=summary.get("temperature_c"))
@@ -210,17 +239,55 @@ def finish(folder: RunFolder, cfg, method: str, bench=None) -> dict:
     return summary
 
 
+def sweep_figures(frames: list[dict]) -> dict:
+    """Levels measured, frames and bench time (s, first to last sweep frame on the bench clock) of a sweep."""
+    times = [r["t_s"] for r in frames]
+    return {"levels": len({r["gray"] for r in frames if r["purpose"] == "level"}), "frames": len(frames),
+            "bench_s": float(max(times) - min(times)) if times else 0.0}
+
+
 def closing_lines(folder: RunFolder, summary: dict) -> list[str]:
     """The lines a finished run prints: range, worst uncertainty, table window, warnings, files."""
     first = summary["first_gray_2pi"]
-    lines = [f"phase range {summary['range_rad']:.3f} rad ({summary['range_pi']:.2f} pi); "
-             + (f"2 pi first reached at gray {first}" if first is not None else "2 pi not reached"),
+    lines = [f"phase range {summary['range_rad']:.3f} rad ({summary['range_pi']:.2f} π); "
+             + (f"2π first reached at gray {first}" if first is not None else "2π not reached"),
              f"worst uncertainty {summary['worst_std_rad'] * 1e3:.1f} mrad at gray {summary['worst_std_gray']}"]
     if "truth_rms_error_rad" in summary:
         lines.append(f"against the simulator's truth: {summary['truth_rms_error_rad'] * 1e3:.1f} mrad rms")
-    lines.append(f"lookup table for 0..2 pi uses grays {summary['lut']['window_gray'][0]}.."
-                 f"{summary['lut']['window_gray'][1]} ({summary['lut']['distinct_grays']} distinct)")
+    sw = summary["sweep"]
+    if "adaptive" in summary:
+        a = summary["adaptive"]
+        lines.append(f"adaptive sweep: {sw['levels']} levels measured ({sw['frames']} frames, {sw['bench_s']:.1f} s "
+                     f"of bench time); the table's predicted error is {a['predicted_table_rms_rad'] * 1e3:.1f} mrad "
+                     f"RMS (tolerance {a['tolerance_rad'] * 1e3:g} mrad, budget {a['budget_levels']} levels)")
+        if "earlier_shape" in a:
+            e = a["earlier_shape"]
+            lines.append(f"earlier curve's shape {'holds' if e['holds'] else 'does not hold'}: scale {e['scale']:.4f}, "
+                         f"chi-square {e['chi2']:.1f} for {e['dof']} degrees of freedom (p = {e['p_value']:.3g})"
+                         + ("" if e["holds"] else "; went on measuring until the model's table was good enough"))
+    if "table_error_vs_truth_rad" in summary:
+        lines.append(f"table error against the simulator's truth: {summary['table_error_vs_truth_rad'] * 1e3:.1f} "
+                     "mrad RMS over its entries")
+    lines += table_lines(summary["lut"])
     lines += [f"warning: {w}" for w in summary["warnings"]]
     lines.append(f"files in {folder.path}: report.html, phase.csv, analysis.json, phase.png, lut/, journal.jsonl, "
                  "run.json")
+    sim = " --sim" if folder.info.get("devices", {}).get("camera_backend") == "sim" else ""
+    lut = folder.path / "lut"
+    lines += [f"next: load {lut / 'lut.npy'} in your hologram code: entry i is the gray for the phase "
+              f"{summary['lut']['range_rad']:.4f} * i / {summary['lut']['levels']} rad (README: Using the table; "
+              "lut.mat, lut.txt and lut.csv hold the same table)",
+              f"next: check it on the bench: fringecal verify{sim} --lut {lut} --config {folder.path / 'config.toml'}"]
+    return lines
+
+
+def table_lines(table: dict) -> list[str]:
+    """What a finished table spans and how many different grays it uses, in words."""
+    low, high = table["window_gray"]
+    range_rad, levels, distinct = table["range_rad"], table["levels"], table["distinct_grays"]
+    lines = [f"lookup table: {levels} entries over {range_rad:.3f} rad ({range_rad / np.pi:.2f} π), from grays "
+             f"{low}..{high}"]
+    if distinct < levels:
+        lines.append(f"  {distinct} different grays among its {levels} entries: where the curve is steep, neighbouring"
+                     " entries are nearer in phase than one gray step, so they share a gray")
     return lines

@@ -82,6 +82,7 @@ class Stage:
     name: str
     total: int = 0
     done: int = 0  # units already measured (a resumed sweep)
+    what: str = ""  # the units in words for the progress display, e.g. "256 gray levels + 17 drift references"
 
 
 @dataclass(frozen=True)
@@ -139,7 +140,7 @@ def exposure_steps(cfg, exposure_s: float, low_gray: int, high_gray: int, target
     Scales the exposure by target / reached while nothing clips; halves it while the peak is saturated. The fringe
     maximum does not depend on the mirror gray, only on the grating pair (how bright its first order is).
     """
-    yield Stage("exposure", tries)
+    yield Stage("exposure", tries, what=f"up to {tries} exposure trials")
     yield ShowSplit(cfg.sweep.reference_gray, low_gray, high_gray)
     yield Settle(cfg.sweep.settle_s)
     for _ in range(tries):
@@ -222,7 +223,8 @@ def tune_steps(cfg, mirror_grays: tuple[int, int], low: int | None = None, coars
             order.append(high)
         return amplitude[high]
 
-    yield Stage("tune", coarse_points + refine)
+    yield Stage("tune", coarse_points + refine,
+                what=f"{coarse_points} high grays, then up to {refine} more to refine the best")
     span = gmax - low
     for high in sorted({low + max(1, round(span * (i + 1) / coarse_points)) for i in range(coarse_points)}):
         yield from measure(high)
@@ -285,7 +287,10 @@ def sweep_steps(cfg, low: int, high: int, done: frozenset[str] = frozenset(), se
                stage: str = "sweep"):
     """Measure every unit of the sweep not in ``done``; frames are analysed and journaled as they come."""
     units = sweep_units(cfg, seed, prefix)
-    yield Stage(stage, len(units), sum(key in done for key, _, _ in units))
+    references = sum(purpose == "reference" for _, purpose, _ in units)
+    yield Stage(stage, len(units), sum(key in done for key, _, _ in units),
+                what=f"{len(units) - references} gray levels + {references} drift reference"
+                     + ("s" if references != 1 else ""))
     for key, purpose, gray in units:
         if key in done:
             continue
@@ -309,7 +314,8 @@ def warmup_steps(cfg, low: int, high: int, max_minutes: float, interval_s: float
     """Hold the reference pattern and follow its fringe phase until, over the last ``window_s``, it moves less than
     ``sweep.warmup_slope_rad_per_min``; give up (stable=False) after ``max_minutes``."""
     gray = cfg.sweep.reference_gray
-    yield Stage("warm-up", int(max_minutes * 60 / interval_s) + 1)
+    checks = int(max_minutes * 60 / interval_s) + 1
+    yield Stage("warm-up", checks, what=f"up to {checks} checks of the reference fringe phase, {interval_s:g} s apart")
     yield ShowSplit(gray, low, high)
     yield Settle(cfg.sweep.settle_s)
     times, phases = [], []
@@ -332,14 +338,18 @@ def warmup_steps(cfg, low: int, high: int, max_minutes: float, interval_s: float
 
 def hold_steps(cfg, gray: int, low: int, high: int, frames: int):
     """Hold one split pattern and grab ``frames`` frames back to back; return their Measurement."""
-    yield Stage("flicker", 1)
+    yield Stage("flicker", 1, what=f"{frames} frames back to back at one gray")
     yield ShowSplit(gray, low, high)
     yield Settle(cfg.sweep.settle_s)
     return (yield Grab(frames, "flicker", gray, wait=True))
 
 
 def run_seconds(cfg, frame_rate_hz: float) -> float:
-    """Lower bound (s) of a sweep's duration: per unit the settle time and its frames at the camera's rate."""
-    per_frame = max(1.0 / frame_rate_hz, cfg.camera.exposure_s)
+    """Lower bound (s) of a sweep's duration: per unit the settle time and its frames, each taking a frame period
+    (free running: the first exposure that starts after the settle is at best the next one) or, software triggered,
+    one exposure (the next exposure may start as the last one ends)."""
+    per_frame = cfg.camera.exposure_s
+    if cfg.camera.trigger == "free-run":
+        per_frame = max(1.0 / frame_rate_hz, per_frame)
     return len(sweep_units(cfg)) * (cfg.sweep.settle_s + cfg.sweep.frames_per_level * per_frame)
 

@@ -1,0 +1,194 @@
+"""Adaptive sweeps end to end on the simulator: the summary, phase.csv's marks, resume after a dying camera,
+recalibration from an earlier run, and the options' checks."""
+
+import csv
+import json
+
+import numpy as np
+import pytest
+from conftest import small_config_file
+
+from rig.cli import main
+from rig.output.runs import read_journal
+from rig.run.steps import sweep_units
+from analysis.config import load_config
+
+
+def read_csv(path):
+    with open(path) as fh:
+        return list(csv.DictReader(fh))
+
+
+def choices(folder):
+    return [r["checkpoint"] for r in read_journal(folder / "journal.jsonl").records
+            if r.get("checkpoint", "").startswith("choice:")]
+
+
+def test_adaptive_run_on_the_demo_bench(tmp_path, capsys):
+    """`run --sim --adaptive` on the demo bench: its summary states the table's error against the truth, manifest.csv
+    holds at most a quarter of the frames a full sweep takes, and phase.csv has a row for every gray, the measured
+    ones marked and each with a positive std. The demo bench's cover-glass ghost (0.5 %: a cyclic error of 70.5 mrad
+    peak, tests/test_cover_glass.py) and warming are not corrected by the sweep's finish yet, so the table error is
+    held only below that peak (achieved 59 mrad); the 10 mrad target is met on the benchmark's panels."""
+    out = tmp_path / "run"
+    assert main(["run", "--sim", "--adaptive", "--out", str(out)]) == 0
+    text = capsys.readouterr().out
+    assert "table error against the simulator's truth" in text and "adaptive sweep:" in text
+    summary = json.loads((out / "analysis.json").read_text())
+    assert summary["table_error_vs_truth_rad"] < 0.0705
+    cfg = load_config(out / "config.toml")
+    full_frames = len(sweep_units(cfg)) * cfg.sweep.frames_per_level
+    assert len(read_csv(out / "manifest.csv")) <= full_frames / 4
+    rows = read_csv(out / "phase.csv")
+    assert [int(r["gray"]) for r in rows] == list(range(256))
+    measured = [r for r in rows if r["source"] == "measured"]
+    assert len(measured) == summary["sweep"]["levels"] <= 48
+    assert all(int(r["n_frames"]) == 0 and r["contrast"] == "" for r in rows if r["source"] == "model")
+    assert all(float(r["phase_std_rad"]) > 0 for r in rows if int(r["gray"]) != 0)
+    lut = json.loads((out / "lut" / "lut.json").read_text())
+    assert lut["predicted_rms_error_rad"] == pytest.approx(summary["adaptive"]["predicted_table_rms_rad"])
+
+
+def test_camera_dying_mid_adaptive_sweep_resumes_to_the_same_levels(tmp_path):
+    """The simulated camera dies every 30 frames inside a tight adaptive sweep (several decisions); each
+    `sweep --resume` continues, and the finished run chose the same levels, in the same decisions, with the same
+    phases to the last digit, as an uninterrupted sweep of the same bench."""
+    settings = ["--adaptive", "--tolerance-mrad", "0.3", "--max-levels", "33", "--pair", "0:80",
+                "--no-frames"]
+    whole = tmp_path / "whole"
+    assert main(["sweep", "--sim", "--config", str(small_config_file(tmp_path, "whole.toml")), "--out", str(whole),
+                 *settings]) == 0
+    cut = tmp_path / "cut"
+    dying = small_config_file(tmp_path, "dying.toml", **{"simulator.faults.die_after_frames": 30})
+    assert main(["sweep", "--sim", "--config", str(dying), "--out", str(cut), *settings]) == 3
+    resumes = 0
+    while json.loads((cut / "run.json").read_text())["status"] != "complete":
+        assert main(["sweep", "--resume", str(cut)]) in (0, 3)
+        resumes += 1
+        assert resumes < 10
+    assert resumes >= 2
+    assert len(choices(whole)) >= 3
+    assert choices(cut) == choices(whole)
+    assert (cut / "phase.csv").read_text() == (whole / "phase.csv").read_text()
+
+
+def test_recalibration_at_a_new_wavelength(tmp_path, capsys):
+    """An adaptive run at 1064 nm, then `run --from` it at 780 nm: at most 16 levels and the new table within 10 mrad
+    RMS of the 780 nm truth. The chi-square verdict is recorded and printed (on this bench the levels' stated std,
+    0.1-0.5 mrad, leaves out the estimator's few-mrad systematic, so the verdict may be 'does not hold')."""
+    first = tmp_path / "first"
+    assert main(["run", "--sim", "--adaptive", "--config", str(small_config_file(tmp_path)), "--out", str(first),
+                 "--no-frames"]) == 0
+    cfg = small_config_file(tmp_path, "780.toml", **{"laser.wavelength_nm": 780.0, "pattern.grating_high": 96})
+    again = tmp_path / "again"
+    assert main(["run", "--sim", "--from", str(first), "--config", str(cfg), "--out", str(again),
+                 "--no-frames"]) == 0
+    summary = json.loads((again / "analysis.json").read_text())
+    shape = summary["adaptive"]["earlier_shape"]
+    truth = [np.array([float(r["phase_rad"]) for r in read_csv(run / "truth.csv")]) for run in (first, again)]
+    assert shape["scale"] == pytest.approx(truth[1][-1] / truth[0][-1], rel=0.01)  # the simulator's dispersion
+    assert summary["sweep"]["levels"] <= 16
+    assert summary["table_error_vs_truth_rad"] < 0.010
+    verdict = "holds" if shape["holds"] else "does not hold"
+    assert f"earlier curve's shape {verdict}" in capsys.readouterr().out
+
+
+@pytest.mark.parametrize("args, fragment", [
+    (["--adaptive", "--full"], "--adaptive, --full"),
+    (["--adaptive", "--tolerance-mrad", "0"], "--tolerance-mrad"),
+    (["--adaptive", "--max-levels", "5"], "--max-levels"),
+])
+def test_bad_sweep_options_are_one_line_and_exit_2(tmp_path, capsys, args, fragment):
+    code = main(["sweep", "--sim", "--config", str(small_config_file(tmp_path)), "--out", str(tmp_path / "r"),
+                 *args])
+    err = capsys.readouterr().err
+    assert code == 2 and fragment in err and "Traceback" not in err
+
+
+def sim_run(tmp_path, name, **changes):
+    out = tmp_path / name
+    cfg = small_config_file(tmp_path, f"{name}.toml", **changes)
+    assert main(["run", "--sim", "--adaptive", "--tolerance-mrad", "3", "--config", str(cfg), "--out", str(out),
+                 "--no-frames"]) == 0
+    return out
+
+
+def true_curve_at(run, temperature_c):
+    """The simulator's panel curve of ``run``'s config at another temperature (order-parameter law)."""
+    import dataclasses
+
+    from simulators.response import PanelResponse
+    cfg = load_config(run / "config.toml")
+    resp = dataclasses.replace(cfg.simulator.response, temperature_c=temperature_c)
+    return PanelResponse(resp, cfg.modulator.bit_depth, cfg.laser.wavelength_nm, cfg.geometry.incidence_deg).curve()[1]
+
+
+def test_temperature_tables_from_runs_at_25_and_35_c(tmp_path, capsys):
+    """Runs at 25 and 35 C (the simulated panel's temperature) give a 30 C table whose curve is within 10 mrad RMS of
+    the simulator's truth at 30 C over the table's entries; 45 C is written too but flagged as outside the measured
+    range, on the terminal and in lut.json."""
+    from analysis.adaptive import table_error_rad
+
+    runs = [sim_run(tmp_path, f"t{t}", **{"simulator.response.temperature_c": float(t)}) for t in (25, 35)]
+    capsys.readouterr()
+    assert main(["lut", "--temperature-c", "30", *map(str, runs), "--out", str(tmp_path / "lut30")]) == 0
+    out = capsys.readouterr()
+    assert "curve at 30 C from 2 runs" in out.out and "outside" not in out.err
+    table = json.loads((tmp_path / "lut30" / "lut.json").read_text())
+    curve = np.array([float(r["phase_rad"]) for r in read_csv(tmp_path / "lut30" / "curve.csv")])
+    assert table["temperature_c"] == 30.0 and not table["extrapolated"]
+    truth = true_curve_at(runs[0], 30.0)
+    turn = 1 if (truth[-1] - truth[0]) * (curve[-1] - curve[0]) > 0 else -1  # runs without the sign probe rise
+    assert table_error_rad(table["gray"], curve, turn * truth) < 0.010
+    assert main(["lut", "--temperature-c", "45", *map(str, runs), "--out", str(tmp_path / "lut45")]) == 0
+    err = capsys.readouterr().err
+    assert "outside the measured range 25..35 C" in err
+    assert json.loads((tmp_path / "lut45" / "lut.json").read_text())["extrapolated"]
+
+
+@pytest.mark.parametrize("args, fragment", [
+    (["--temperature-c", "30", "nowhere", "nowhere2"], "RUN_DIR"),
+    (["a.csv", "b.csv"], "expected one curve"),
+])
+def test_bad_temperature_table_input_is_one_line(tmp_path, capsys, args, fragment):
+    code = main(["lut", *args, "--out", str(tmp_path / "o")])
+    err = capsys.readouterr().err
+    assert code == 2 and fragment in err and "Traceback" not in err
+
+
+def test_map_with_adaptive_tiles(tmp_path):
+    """`map --adaptive` on a panel whose cell gap varies 10 %: each tile's range within 2 % of 2 pi of its truth (as
+    the full map), every tile's phase.csv marks measured and model rows, and each tile measured at most 48 levels."""
+    from test_map import MAP
+
+    changes = {k: v for k, v in MAP.items() if k != "sweep.levels"}
+    cfg = small_config_file(tmp_path, **changes)
+    out = tmp_path / "map"
+    assert main(["map", "--sim", "--adaptive", "--config", str(cfg), "--grid", "1x2", "--out", str(out),
+                 "--no-frames"]) == 0
+    summary = json.loads((out / "map.json").read_text())
+    # the truth falls with gray (sign.md) and a curve whose direction is not established yet rises: compare spans
+    for name, true_range in summary["truth_range_rad"].items():
+        assert abs(abs(summary["range_rad"][name]) - abs(true_range)) < 0.02 * 2 * np.pi
+    for name in summary["tiles"]:
+        rows = read_csv(out / "tiles" / name / "phase.csv")
+        assert len(rows) == 256 and 5 <= sum(r["source"] == "measured" for r in rows) <= 48
+    assert set(summary["predicted_table_rms_rad"]) == set(summary["tiles"])
+
+
+def test_12_bit_panel_is_adaptive_by_default(tmp_path):
+    """A 12-bit panel with no sweep option: the run is adaptive (at most 96 levels), phase.csv has all 4096 grays,
+    the table's files hold 4096 entries of 12-bit grays, the report is written, and the table is within 10 mrad of
+    the truth."""
+    cfg = small_config_file(tmp_path, **{"modulator.bit_depth": 12, "pattern.grating_high": 2048})
+    out = tmp_path / "run"
+    assert main(["run", "--sim", "--config", str(cfg), "--out", str(out), "--no-frames"]) == 0
+    info = json.loads((out / "run.json").read_text())
+    summary = json.loads((out / "analysis.json").read_text())
+    assert info["sweep_mode"] == "adaptive" and summary["sweep"]["levels"] <= 96
+    assert len(read_csv(out / "phase.csv")) == 4096
+    table = np.load(out / "lut" / "lut.npy")
+    assert table.shape == (4096,) and table.dtype == np.uint16 and table.max() > 255 and table.max() < 4096
+    assert len((out / "lut" / "lut.txt").read_text().split()) == 4096
+    assert (out / "report.html").is_file()
+    assert summary["table_error_vs_truth_rad"] < 0.010
