@@ -51,9 +51,13 @@ def bench_config(tmp_path, backend="sim", device="", extra="", name="bench.toml"
 
 
 def offset_free_rms(folder):
+    """RMS (rad) of phase.csv against truth.csv, offset removed; the truth is turned to run the curve's way (a run
+    without a sign probe makes its curve rise, the simulated panel's truth falls)."""
     truth = dict(np.loadtxt(folder / "truth.csv", delimiter=",", skiprows=1))
     rows = np.loadtxt(folder / "phase.csv", delimiter=",", skiprows=1, usecols=(0, 1))
-    err = rows[:, 1] - np.array([truth[g] for g in rows[:, 0]])
+    true = np.array([truth[g] for g in rows[:, 0]])
+    true *= np.sign((true[-1] - true[0]) * (rows[-1, 1] - rows[0, 1]))
+    err = rows[:, 1] - true
     return float(np.sqrt(np.mean((err - err.mean()) ** 2)))
 
 

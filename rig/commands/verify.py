@@ -175,13 +175,11 @@ def _auto_exposure(devices, cfg, image, tries: int = 8) -> None:
         cam.exposure_s = min(max(cam.exposure_s * (0.5 if peak >= 0.99 else 0.6 / max(peak, 1e-3)), 1e-6), 10.0)
 
 
-def measure_efficiency(cfg, devices, tables: dict[str, Table], periods, spot_radius_um: float, frames: int,
-                       pixel_aperture_in_image: bool) -> dict:
+def measure_efficiency(cfg, devices, tables: dict[str, Table], periods, spot_radius_um: float, frames: int) -> dict:
     """First-order efficiency of blazed gratings (whole panel) through each table, and the theory per period.
 
-    ``pixel_aperture_in_image`` is False on the simulator, which samples each pixel at one point: its images hold
-    the pixel pattern's discrete spectrum without the pixel-aperture envelope, so the ratio measured there is the
-    second factor of the efficiency and is multiplied by sinc^2(1/N) (analysis/efficiency.py).
+    The images hold the pixel-aperture envelope (the panel's flat pixels on the bench, and in the simulator's
+    propagation), so the measured first-order share is compared with sinc^2(1/N) as it is.
     """
     m, cam = cfg.modulator, devices.camera
     main = tables["table"]
@@ -205,9 +203,8 @@ def measure_efficiency(cfg, devices, tables: dict[str, Table], periods, spot_rad
             grating = blazed_grays(table, n, m.width_px, m.height_px)
             zero, plus, minus = power(_grab_mean(devices, cfg, grating, frames, mirror), [0.0, dx, -dx])
             first, other = max(plus, minus), min(plus, minus)  # which side is +1 is the panel's phase convention
-            factor = 1.0 if pixel_aperture_in_image else swanson_efficiency(n)
-            entry[name] = {"efficiency": factor * first / p_mirror, "zero_order": zero / p_mirror,
-                           "minus_first": factor * other / p_mirror}
+            entry[name] = {"efficiency": first / p_mirror, "zero_order": zero / p_mirror,
+                           "minus_first": other / p_mirror}
         out["periods"][str(n)] = entry
     return out
 
@@ -256,8 +253,7 @@ def cmd_verify(args) -> int:
         far, spot_um = far_view(cfg, periods)
         devices = open_devices(far, True)
         try:
-            eff = measure_efficiency(far, devices, tables, periods, spot_um, args.frames,
-                                     pixel_aperture_in_image=False)
+            eff = measure_efficiency(far, devices, tables, periods, spot_um, args.frames)
         finally:
             devices.close()
         eff["far_view"] = {"distance_mm": far.geometry.distance_mm, "beam_radius_mm": far.simulator.beam.radius_mm,
@@ -293,8 +289,6 @@ def cmd_verify(args) -> int:
             passed_eff &= abs(ratio - 1) <= PASS_EFFICIENCY
             print(f"    {n:>9} {100 * e['sinc2']:>11.1f}% {100 * e['table']['efficiency']:>7.1f}% "
                   f"{100 * e['identity']['efficiency']:>8.1f}% {ratio:>13.3f}")
-        print("    (the simulator samples each pixel at a point; its measured first-order share is multiplied by the "
-              "pixel-aperture factor sinc^2(1/N))")
     else:
         print(f"(b) {note}")
     verdict = passed_lin and passed_eff

@@ -134,8 +134,11 @@ class ReplayCamera(CameraBase):
     ``fringecal analyze`` reads them), starting again at the end: a bench rehearsal without a bench.
 
     Each frame's exposure starts when ``grab`` is called, so no frame predates a settle deadline; exposure and gain
-    are recorded in the frames' metadata but do not change the images.
+    are recorded in the frames' metadata but do not change the images (``fixed_images``), so a run keeps the
+    configured exposure instead of tuning it.
     """
+
+    fixed_images = True
 
     def __init__(self, settings, clock=None):
         folder = Path(settings.device)
