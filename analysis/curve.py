@@ -681,7 +681,7 @@ def phase_curve(gray, phase_rad, std_rad, time_s=None, contrast=None, reference_
         if amp.shape != (n,) or not np.all(np.isfinite(amp) & (amp > 0)):
             raise CurveError("amplitude: expected one positive, finite fringe amplitude per frame")
         try:
-            leak = fit_leak(gray, amp * np.exp(1j * phase), std * amp)
+            leak = fit_leak(gray, amp * np.exp(1j * phase), std * amp, time_s=time_s)
         except ValueError as exc:
             warnings.append(f"cyclic error not fitted: {exc}")
         if leak is not None:

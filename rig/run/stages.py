@@ -229,21 +229,8 @@ def finish(folder: RunFolder, cfg, method: str, bench=None, adaptive: AdaptiveSe
     folder.write_csv("frames.csv", list(FRAME_COLUMNS),
                      ([_cell(r.get(k)) for k in FRAME_COLUMNS] for r in contents.frames() if "phase_rad" in r))
     warnings = list(folder.info.get("warnings", []))
-    amplitude = [r.get("amplitude_adu") for r in frames]
-    if not all(a is not None and a > 0 for a in amplitude):
-        amplitude = None
-        warnings.append("no fringe amplitudes in the journal: the cyclic error is neither fitted nor corrected")
+    curve, mid_s = curve_from_frames(frames, cfg.sweep.reference_gray, folder.info, warnings=warnings)
     probe = folder.info.get("direction") or {}
-    direction = probe.get("direction", "unknown")
-    scale_gray = folder.info.get("scale_gray")
-    level_times = [r["t_s"] for r in frames]
-    mid_s = 0.5 * (min(level_times) + max(level_times))
-    curve = phase_curve([r["gray"] for r in frames], [r["phase_rad"] for r in frames],
-                        [r["phase_std_rad"] for r in frames], level_times, [r["contrast"] for r in frames],
-                        cfg.sweep.reference_gray, None, smooth=True, direction=direction,
-                        direction_basis="measured" if direction != "unknown" else None, amplitude=amplitude,
-                        scale_gray=scale_gray if any(r["gray"] == scale_gray for r in frames) else None,
-                        scale_at_s=mid_s)
     saturated = sorted({r["gray"] for r in frames if r["saturated_px"]})
     if saturated:
         warnings.append(f"saturated pixels in the band at grays {', '.join(map(str, saturated))}")
@@ -305,6 +292,39 @@ def finish(folder: RunFolder, cfg, method: str, bench=None, adaptive: AdaptiveSe
                   first_gray_2pi=summary["first_gray_2pi"], temperature_c=summary.get("temperature_c"))
     write_report(folder.path)  # after the status: the page says how the run ended
     return summary
+
+
+def curve_from_frames(frames: list[dict], reference_gray: int, info: dict, *, cyclic: bool = True,
+                      direction: str | None = None, warnings: list[str] | None = None):
+    """The phase curve of a sweep's frames (journal or frames.csv records, any order) as a run makes it, and the
+    time (s) it refers to (the sweep's middle).
+
+    ``info`` is the run's run.json: its ``direction`` (the sign probe's) and ``scale_gray`` are used; ``direction``
+    overrides the probe's. ``cyclic`` False leaves the fringe amplitudes out (no cyclic-error fit), to see what the
+    correction does. A missing amplitude is noted in ``warnings``.
+    """
+    frames = sorted((r for r in frames if r["purpose"] in ("level", "reference") and r["phase_rad"] is not None),
+                    key=lambda r: r["t_s"])
+    if not frames:
+        raise CurveError("sweep: no measured frame")
+    amplitude = [r.get("amplitude_adu") for r in frames]
+    if not all(a is not None and a > 0 for a in amplitude):
+        amplitude = None
+        if cyclic and warnings is not None:
+            warnings.append("no fringe amplitudes recorded: the cyclic error is neither fitted nor corrected")
+    measured = (info.get("direction") or {}).get("direction", "unknown")
+    chosen = measured if direction is None else direction
+    basis = "measured" if direction is None and measured != "unknown" else None
+    scale_gray = info.get("scale_gray")
+    times = [r["t_s"] for r in frames]
+    mid_s = 0.5 * (min(times) + max(times))
+    curve = phase_curve([r["gray"] for r in frames], [r["phase_rad"] for r in frames],
+                        [r["phase_std_rad"] for r in frames], times, [r.get("contrast") for r in frames],
+                        reference_gray, None, smooth=True, direction=chosen, direction_basis=basis,
+                        amplitude=amplitude if cyclic else None,
+                        scale_gray=scale_gray if any(r["gray"] == scale_gray for r in frames) else None,
+                        scale_at_s=mid_s)
+    return curve, mid_s
 
 
 def _cell(value) -> str:
