@@ -371,6 +371,8 @@ def _drift_model(t, phi, err, is_scale, scale_gray) -> DriftModel:
     x = (t - t0) / span
     blocks = [np.ones(t.size, bool)] + ([is_scale] if is_scale.any() else [])
     degrees, coeffs, cov, chi2 = _polyfit_select(x, phi, err, blocks)
+    # Scatter the visits' errors still miss widens the covariance by the Birge ratio, so it reaches the levels.
+    cov = cov * max(chi2 / max(t.size - sum(d + 1 for d in degrees), 1), 1.0)
     unscale = np.concatenate([span ** -np.arange(d, -1, -1.0) for d in degrees])
     coeffs, cov = coeffs * unscale, cov * np.outer(unscale, unscale)
     n_p = degrees[0] + 1
@@ -600,6 +602,9 @@ def _remove_drift(gray, phase, std, time_s, contrast, cyclic, reference_gray, sc
     # Visits are counted in time order so that frames handed over shuffled still group correctly.
     order = np.argsort(time_s, kind="stable")
     visit = _visits(is_ref, order)
+    # A visit of two frames can show almost no scatter by chance: each frame's error takes the frames' pooled
+    # spread beyond their stated std (vibration, flicker), from every run of back-to-back frames of one gray.
+    std = np.sqrt(std**2 + _pooled_excess(gray, phase, std, order))
     if len(np.unique(visit[is_ref])) < 2:
         if scale_gray is not None:
             warnings.append(f"reference gray {reference_gray} was measured in fewer than two visits: no drift model")
@@ -624,6 +629,21 @@ def _remove_drift(gray, phase, std, time_s, contrast, cyclic, reference_gray, sc
     branch = rough[np.searchsorted(first.gray, gray)]
     unwrapped = branch + np.angle(np.exp(1j * (phase - drift(time_s) - branch)))
     return drift, np.angle(np.exp(1j * unwrapped / (1 + drift.scale(time_s))))
+
+
+def _pooled_excess(gray, phase, std, order) -> float:
+    """Variance (rad^2) of frames beyond their stated std, pooled over runs of consecutive frames of one gray."""
+    g, p, e = gray[order], phase[order], std[order]
+    starts = np.flatnonzero(np.r_[True, g[1:] != g[:-1]])
+    ends = np.r_[starts[1:], g.size]
+    num, dof = 0.0, 0
+    for a, b in zip(starts, ends):
+        if b - a < 2:
+            continue
+        dev = np.angle(np.exp(1j * (p[a:b] - np.angle(np.mean(np.exp(1j * p[a:b]))))))
+        num += float(np.sum(dev**2) - (b - a - 1) * np.mean(e[a:b] ** 2))
+        dof += b - a - 1
+    return max(num / dof, 0.0) if dof else 0.0
 
 
 def phase_curve(gray, phase_rad, std_rad, time_s=None, contrast=None, reference_gray: int = 0,
