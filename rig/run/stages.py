@@ -210,7 +210,8 @@ def sweep(s: Session, low: int, high: int, done=frozenset(), adaptive: AdaptiveS
         return
     s.folder.update(scale_gray=None)
     rows = journal_rows(read_journal(s.folder.path / "journal.jsonl").frames()) if done else []
-    s.engine.run(adaptive_sweep_steps(s.cfg, low, high, adaptive, done, rows, log=s.log))
+    direction = (s.folder.info.get("direction") or {}).get("direction", "unknown")
+    s.engine.run(adaptive_sweep_steps(s.cfg, low, high, adaptive, done, rows, log=s.log, direction=direction))
 
 
 FRAME_COLUMNS = ("frame", "purpose", "gray", "t_s", "phase_rad", "phase_std_rad", "amplitude_adu", "background_adu",
@@ -247,7 +248,8 @@ def finish(folder: RunFolder, cfg, method: str, bench=None, adaptive: AdaptiveSe
     summary = curve_summary(curve, band, Carrier(c["fx"], c["fy"], c["sharpness"]), method, warnings, "time_s")
     summary["sign_probe"] = probe or None
     summary["curve_at_s"] = mid_s
-    model = finish_model(journal_rows(frames), cfg, adaptive) if adaptive is not None else None
+    model = (finish_model(journal_rows(frames), cfg, adaptive, probe.get("direction", "unknown"))
+             if adaptive is not None else None)
     summary["sweep"] = sweep_figures(frames)
     truth = None
     if bench is not None:
