@@ -59,7 +59,8 @@ def temperature_shifts(results) -> list[str]:
         temps = np.array([r.info["temperature_c"] for r in group])
         if len(group) < 2 or np.ptp(temps) < 0.1:
             continue
-        spans = np.array([float(r.curve.phase_rad[-1] - r.curve.phase_rad[0]) for r in group])
+        # a range is a span, whichever way the phase runs with gray
+        spans = np.array([abs(float(r.curve.phase_rad[-1] - r.curve.phase_rad[0])) for r in group])
         slope = float(np.polyfit(temps, spans, 1)[0])
         cold, warm = group[int(np.argmin(temps))], group[int(np.argmax(temps))]
         grays = np.intersect1d(cold.curve.gray, warm.curve.gray)
@@ -91,8 +92,8 @@ def cmd_compare(args) -> int:
           f"{'misfit mrad':>12}")
     for i, r in enumerate(results):
         c = r.curve
-        span = float(c.phase_rad[-1] - c.phase_rad[0])
-        reach = np.flatnonzero(c.phase_rad - c.phase_rad[0] >= 2 * np.pi)
+        span = abs(float(c.phase_rad[-1] - c.phase_rad[0]))  # a span, whichever way the phase runs
+        reach = np.flatnonzero(np.abs(c.phase_rad - c.phase_rad[0]) >= 2 * np.pi)
         first = str(int(c.gray[reach[0]])) if reach.size else "-"
         nm = f"{r.wavelength_nm:g}" if r.wavelength_nm else "?"
         if model is None:

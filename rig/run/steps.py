@@ -318,7 +318,9 @@ def sweep_steps(cfg, low: int, high: int, done: frozenset[str] = frozenset(), se
     references = sum(purpose == "reference" for _, purpose, _ in units)
     yield Stage(stage, len(units), sum(key in done for key, _, _ in units),
                 what=f"{len(units) - references} gray levels + {references} drift reference"
-                     + ("s" if references != 1 else ""))
+                     + ("s" if references != 1 else "")
+                     + (f" ({references // 2} visits at grays {cfg.sweep.reference_gray} and {scale_gray})"
+                        if scale_gray is not None and references else ""))
     for key, purpose, gray in units:
         if key in done:
             continue
