@@ -48,9 +48,9 @@ def check_monotone(curve, source) -> None:
     if bad.size:
         i = int(bad[0]) + 1
         word = "rising" if direction > 0 else "falling"
-        raise UsageError(f"PHASE_CSV: {source} line {i + 2}: the phase at gray {curve.gray[i]} goes back "
-                         f"{back[i - 1]:.2f} rad against the curve's {word} direction; expected a monotone curve "
-                         "(remeasure that gray, or remove its row)")
+        raise UsageError(f"PHASE_CSV: {source} lines {i + 1}-{i + 2}: from gray {curve.gray[i - 1]} to gray "
+                         f"{curve.gray[i]} the phase goes back {back[i - 1]:.2f} rad against the curve's {word} "
+                         "direction; expected a monotone curve (remeasure those grays, or remove the bad row)")
 
 
 def cmd_lut(args) -> int:

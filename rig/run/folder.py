@@ -55,6 +55,8 @@ class RunFolder:
         path = Path(path)
         if (path / "run.json").exists():
             raise UsageError(f"--out: {path} already holds a run; resume it with --resume {path} or pick a new folder")
+        if path.exists() and not path.is_dir():
+            raise UsageError(f"--out: {path} exists and is not a folder; pick a new folder")
         if path.exists() and any(path.iterdir()):
             raise UsageError(f"--out: {path} exists and is not empty; pick a new folder")
         if not path.parent.is_dir():
