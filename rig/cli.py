@@ -76,7 +76,6 @@ def build_parser() -> argparse.ArgumentParser:
         """Add a subcommand; ``config`` is its --config help (None: the command reads no config)."""
         p = sub.add_parser(name, help=help_text, description=func.__doc__)
         p.set_defaults(func=func)
-        p.add_argument("--debug", action="store_true", default=argparse.SUPPRESS, help=DEBUG_HELP)
         if config is not None:
             p.add_argument("--config", metavar="FILE", help=config)
         return p
@@ -92,7 +91,10 @@ def _interrupt(signum, frame):
 
 def main(argv: list[str] | None = None) -> int:
     parser = build_parser()
-    args = parser.parse_args(argv)
+    try:
+        args = parser.parse_args(argv)
+    except SystemExit as done:  # --help, --version, or a bad argument (one line, exit 2): returned, as commands'
+        return done.code
     if args.command is None:
         parser.print_help()
         return 0

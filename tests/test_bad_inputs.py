@@ -424,3 +424,19 @@ def test_bad_input(ws, tmp_path, build, code, culprit):
 
 def test_there_are_enough_cases():
     assert len(CASES) >= 60
+
+
+def test_force_writes_over_results_of_another_source(ws, tmp_path):
+    """analyze, lut and predict refuse an --out holding a run or results from elsewhere; --force writes there."""
+    run = copy_run(ws, tmp_path)
+    curve = phase_csv(lambda g, p, s: (1.01 * p, s))(tmp_path, ws)
+    commands = [["analyze", ws / "done", "--out", run],
+                ["lut", curve, "--out", run / "lut"],
+                ["predict", "--from", ws / "done", f"{ws / 'done'}@780", "--wavelength-nm", 905, "--out", run]]
+    for argv in commands:
+        assert fringecal(*argv, cwd=tmp_path).returncode == 2
+        done = fringecal(*argv, "--force", cwd=tmp_path)
+        assert done.returncode == 0, done.stderr
+    table = json.loads((run / "lut" / "lut.json").read_text())
+    assert table["source_file"] == str(curve)
+    assert json.loads((run / "prediction.json").read_text())["wavelength_nm"] == 905

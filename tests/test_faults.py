@@ -90,22 +90,25 @@ def test_a_full_disk_stops_the_run_resumably_and_records_only_what_was_written(b
     assert all((cut / row.split(",")[1]).is_file() for row in manifest)
 
 
-def test_a_second_writer_is_refused_and_the_first_goes_on(bench, tmp_path):
+def test_a_second_writer_is_refused_and_the_first_goes_on(tmp_path):
     folder, events = tmp_path / "run", tmp_path / "events"
-    first = start("sweep", "--sim", "--config", bench / "bench.toml", "--pair", "0:80", "--out", folder,
-                  "--events", events, cwd=tmp_path)
+    config = small_config_file(tmp_path)  # every gray level: long enough to try twice while it runs
+    first = start("sweep", "--sim", "--config", config, "--pair", "0:80", "--out", folder, "--events", events,
+                  cwd=tmp_path)
     wait_for_stage(events, first, "sweep")
     second = run("sweep", "--resume", folder, cwd=tmp_path)
     third = run("map", "--resume", folder, cwd=tmp_path)
-    first.communicate(timeout=300)
-    assert first.returncode == 0
+    assert first.poll() is None, "the first writer ended before the second tried"
+    first.send_signal(signal.SIGINT)
+    _, err = first.communicate(timeout=300)
+    assert first.returncode == 130, err
     for refused in (second, third):
         assert refused.returncode == 2, refused.stderr
         lines = error_lines(refused.stderr)
         assert len(lines) == 1 and f"being written by process {first.pid}" in lines[0], refused.stderr
     checkpoints = [r["checkpoint"] for r in read_journal(folder / "journal.jsonl").records if "checkpoint" in r]
-    assert len(checkpoints) == len(set(checkpoints))
-    assert (folder / "phase.csv").read_text() == (bench / "whole-sweep" / "phase.csv").read_text()
+    assert checkpoints and len(checkpoints) == len(set(checkpoints))
+    assert status(folder) == "interrupted"
 
 
 @pytest.mark.parametrize("sig", [signal.SIGTERM, signal.SIGHUP], ids=["SIGTERM", "SIGHUP"])
@@ -143,3 +146,40 @@ def test_json_output_is_json_alone(bench, tmp_path):
     assert out.returncode == 0, out.stderr
     doc = json.loads(out.stdout)
     assert doc["gray"] == 64 and doc["frames"] >= 8
+
+
+CRASH = """
+import sys
+import rig.commands.sweep as sweep
+
+
+def finish(*args, **kwargs):
+    raise RuntimeError("a bug in finishing")
+
+
+sweep.finish = finish
+from rig.cli import main
+sys.exit(main(sys.argv[1:]))
+"""
+
+
+@pytest.mark.parametrize("debug", [False, True], ids=["plain", "debug"])
+def test_an_internal_error_is_one_line_with_a_log_and_marks_the_run_failed(bench, tmp_path, debug):
+    """A bug (here a finishing stage made to raise) ends with exit 1, one line saying where the traceback went, and
+    the run marked failed; with --debug the traceback is shown as well."""
+    folder = tmp_path / "run"
+    argv = [sys.executable, "-c", CRASH, *(["--debug"] if debug else []), "sweep", "--sim", "--config",
+            str(bench / "bench.toml"), "--pair", "0:80", "--out", str(folder)]
+    out = subprocess.run(argv, capture_output=True, text=True, cwd=tmp_path, timeout=300)
+    assert out.returncode == 1
+    info = json.loads((folder / "run.json").read_text())
+    assert info["status"] == "failed" and "a bug in finishing" in info["message"]
+    assert "RuntimeError: a bug in finishing" in (folder / "error.log").read_text()
+    lines = error_lines(out.stderr)
+    assert lines[-1].endswith(f"details in {folder / 'error.log'}") and "a bug in finishing" in lines[-1]
+    assert ("Traceback" in out.stderr) == debug
+    if not debug:
+        assert len(lines) == 1
+    resumed = run("sweep", "--resume", folder, cwd=tmp_path)  # nothing measured was lost
+    assert resumed.returncode == 0, resumed.stderr
+    assert (folder / "phase.csv").read_text() == (bench / "whole-sweep" / "phase.csv").read_text()
