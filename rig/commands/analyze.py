@@ -62,7 +62,6 @@ def cmd_analyze(args) -> int:
     out = output_folder(args.out)
     if not 1 <= args.bit_depth <= 16:
         raise UsageError(f"--bit-depth: expected 1 to 16 bits, got {args.bit_depth}")
-    claim_output(out, source_of(args.source), args.force)
     _check_finished(Path(args.source))
     try:
         return _analyze(args, out)
@@ -137,6 +136,7 @@ def _analyze(args, out: Path) -> int:
     if curve.drift is None:
         warnings.append("no drift correction: the reference gray was measured in fewer than two visits")
 
+    claim_output(out, source_of(args.source), args.force)  # once the input is known good: its errors come first
     out.mkdir(parents=True, exist_ok=True)
     write_phase_csv(out / "phase.csv", curve)
     summary = {"source": str(args.source), "images": len(records),

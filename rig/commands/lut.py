@@ -76,7 +76,6 @@ def cmd_lut(args) -> int:
         raise UsageError(f"PHASE_CSV: expected one curve (several runs only with --temperature-c), "
                          f"got {len(args.phase_csv)}")
     source = args.phase_csv[0]
-    claim_output(out, source_of(source), args.force)
 
     curve = read_phase_csv(source)
     check_monotone(curve, source)
@@ -86,6 +85,7 @@ def cmd_lut(args) -> int:
     except ValueError as err:
         raise UsageError(f"PHASE_CSV: {source}: {err}") from None
 
+    claim_output(out, source_of(source), args.force)
     out.mkdir(exist_ok=True)
     created = datetime.datetime.now(datetime.timezone.utc).isoformat(timespec="seconds")
     write_lut_folder(out, lut, metadata(lut, str(source), created, wavelength))
