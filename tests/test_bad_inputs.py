@@ -431,8 +431,8 @@ def test_force_writes_over_results_of_another_source(ws, tmp_path):
     run = copy_run(ws, tmp_path)
     curve = phase_csv(lambda g, p, s: (1.01 * p, s))(tmp_path, ws)
     commands = [["analyze", ws / "done", "--out", run],
-                ["lut", curve, "--out", run / "lut"],
-                ["predict", "--from", ws / "done", f"{ws / 'done'}@780", "--wavelength-nm", 905, "--out", run]]
+                ["predict", "--from", ws / "done", f"{ws / 'done'}@780", "--wavelength-nm", 905, "--out", run],
+                ["lut", curve, "--out", run / "lut"]]
     for argv in commands:
         assert fringecal(*argv, cwd=tmp_path).returncode == 2
         done = fringecal(*argv, "--force", cwd=tmp_path)
