@@ -18,6 +18,7 @@ MIN_CONTRAST = 0.05      # below this visibility no estimator gives a useful pha
 AMPLITUDE_FRACTION = 0.3  # band pixels have at least this fraction of the peak local fringe amplitude
 PERIOD_TOLERANCE = 0.1   # band pixels have a local frequency within this fraction of the carrier
 HARMONIC_RATIO = 0.5     # where the twice-carrier beat is this strong the grating's +1/-1 orders overlap
+FREQUENCY_WINDOW_PERIODS = 2  # the local frequency is averaged over this many fringe periods before the test
 
 
 Band = Rect  # the fringe band is an image rectangle, the same kind of value as a panel rectangle
@@ -71,8 +72,8 @@ def find_band(frames, dark_adu: float = 0.0, carrier: Carrier | None = None) -> 
     """Find the fringe band of split-screen frames and survey it.
 
     ``frames`` is one image or a sequence of images of the same scene at different mirror grays. Band pixels carry
-    fringes of at least AMPLITUDE_FRACTION of the peak local amplitude, a local frequency within PERIOD_TOLERANCE
-    of the carrier and no strong beat at twice the carrier (the grating's +1 and -1 orders overlapping). Next to
+    fringes of at least AMPLITUDE_FRACTION of the peak local amplitude, a local frequency (averaged over
+    FREQUENCY_WINDOW_PERIODS periods) within PERIOD_TOLERANCE of the carrier and no strong beat at twice the carrier (the grating's +1 and -1 orders overlapping). Next to
     the band, the grating's zero and first orders make fringes of the same period whose phase does not follow the
     mirror gray; given several frames, pixels whose fringes moved less than half as much as the most mobile ones
     are dropped. The largest connected region left is reduced to the rectangle of its rows and columns that are at
@@ -92,7 +93,12 @@ def find_band(frames, dark_adu: float = 0.0, carrier: Carrier | None = None) -> 
     if best < MIN_CONTRAST:
         raise NoFringesError(f"no fringes: contrast {best:.2f} below {MIN_CONTRAST} in the brightest region; "
                              "check polarisation and overlap")
-    uniform = np.abs(_local_frequency(maps.fringe, carrier) - carrier.frequency) <= PERIOD_TOLERANCE * carrier.frequency
+    # The local frequency, amplitude-weighted over two periods: pixel to pixel it jitters where weak stray orders
+    # beat with the fringes (crosstalk and a polarisation error together), which would cut the band into pieces.
+    size = int(np.ceil(FREQUENCY_WINDOW_PERIODS * carrier.period_px))
+    local_f = (ndimage.uniform_filter(_local_frequency(maps.fringe, carrier) * amp, size)
+               / np.maximum(ndimage.uniform_filter(amp, size), 1e-12))
+    uniform = np.abs(local_f - carrier.frequency) <= PERIOD_TOLERANCE * carrier.frequency
     mask = (amp >= AMPLITUDE_FRACTION * amp.max()) & uniform & (2 * np.abs(maps.harmonic) < HARMONIC_RATIO * amp)
     if len(stack) > 1:
         mask &= _moving(stack, maps.fringe, carrier, mask)

@@ -98,6 +98,10 @@ class Sweep:
     settle_s: float = spec(0.1, lo=0.0, hi=60.0, doc="wait after a pattern change")
     reference_gray: int = spec(0, lo=0, hi=4095, doc="gray re-measured for drift correction")
     reference_every: int = spec(16, lo=0, hi=100000, doc="levels between drift references (0: none)")
+    second_reference_gray: int | str = spec("auto", lo=0, hi=4095,
+                                            doc="gray re-measured with every reference for the drift of the curve's "
+                                                "scale: 'auto' (the gray about pi from reference_gray), 'none', or "
+                                                "a gray")
     order: str = spec("ascending", choices=("ascending", "shuffled", "up-down"), doc="order of the levels")
     warmup_slope_rad_per_min: float = spec(0.01, lo=1e-6, hi=10.0, lo_open=False,
                                            doc="warm-up is over when the fringe phase moves less than this a minute")
@@ -410,6 +414,10 @@ def _check(value, hint, meta, source, path):
         if len(set(value)) < 2:
             fail("'all' or a list of at least 2 different gray levels (a repeated level is measured once)")
         return tuple(value)
+    if path == "sweep.second_reference_gray":
+        if value in ("auto", "none") or type(value) is int and lo <= value <= hi:
+            return value
+        fail(f"'auto', 'none' or a gray level in [{lo}, {hi}]")
     if path == "modulator.display":
         if type(value) is int and value >= 0 or isinstance(value, str) and value:
             return value
@@ -479,6 +487,10 @@ def _cross_check(cfg: Config) -> None:
         fail("pattern.grating_period_px", "at least two periods inside the grating half", cfg.pattern.grating_period_px)
     if cfg.sweep.reference_gray > gmax:
         fail("sweep.reference_gray", f"a gray level in [0, {gmax}]", cfg.sweep.reference_gray)
+    second = cfg.sweep.second_reference_gray
+    if type(second) is int and (second > gmax or second == cfg.sweep.reference_gray):
+        fail("sweep.second_reference_gray", f"'auto', 'none' or a gray in [0, {gmax}] other than reference_gray",
+             second)
     if cfg.sweep.levels != "all":
         bad = [g for g in cfg.sweep.levels if not 0 <= g <= gmax]
         if bad:

@@ -5,8 +5,8 @@ Frames come in acquisition order with their gray, wrapped phase (rad), standard 
 optionally their fringe amplitude, which makes each frame's complex amplitude for the leak (cyclic-error) fit of
 ``analysis.cyclic``. Repeats of the reference gray spread through the sweep are drift references: their phase
 against time is the piston drift. Repeats of a second reference gray (``scale_gray``) add the drift of the curve's
-scale: the measured phase is modelled as (1 + s(t)) phi(g) + p(t), s(t0) = 0 at the first reference visit, so the
-curve is that of the panel as it was then. Every visit's noise enters the drift model and, through it, every level,
+scale: the measured phase is modelled as (1 + s(t)) phi(g) + p(t), s = 0 at the first reference visit (or at a
+time the caller names, such as the sweep's middle), so the curve is that of the panel as it was then. Every visit's noise enters the drift model and, through it, every level,
 so the model has only as many terms as the visits show to be there.
 
 Each level's standard uncertainty is a budget after the GUM (JCGM 100:2008), components combined in quadrature:
@@ -18,7 +18,7 @@ a systematic floor from the distortion the circle model leaves.
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 
 import numpy as np
 from scipy import interpolate, optimize, stats
@@ -47,7 +47,8 @@ class DriftModel:
 
     The measured phase is (1 + s(t)) phi(g) + p(t), phi relative to the reference gray. ``coefficients`` are p's,
     a polynomial in (t - t0), highest power first (as numpy.polyval takes them); ``scale_coefficients`` those of
-    q(t) = (1 + s(t)) phi(scale_gray), the second reference's phase above the first, so s(t) = q(t) / q(t0) - 1.
+    q(t) = (1 + s(t)) phi(scale_gray), the second reference's phase above the first, so s(t) = q(t) / q(ts) - 1
+    with ts = ``scale_at_s`` (None: t0), the time whose panel the corrected curve describes.
     ``covariance`` (rad^2) is that of the piston coefficients, ``joint_covariance`` that of piston then scale
     coefficients; ``chi2`` the visits' chi-square about the model, near the visits less the terms when their
     uncertainties are honest. Without a second reference the scale is zero and its fields are empty.
@@ -64,6 +65,7 @@ class DriftModel:
     scale_visits: int = 0
     joint_covariance: tuple[tuple[float, ...], ...] = ()
     scale_span: float = 0.0  # largest minus smallest s(t) over the sweep (dimensionless)
+    scale_at_s: float | None = None
 
     def __call__(self, t_s: np.ndarray) -> np.ndarray:
         return np.polyval(self.coefficients, np.asarray(t_s, dtype=float) - self.t0_s)
@@ -73,7 +75,12 @@ class DriftModel:
         t = np.asarray(t_s, dtype=float)
         if not self.scale_coefficients:
             return np.zeros_like(t)
-        return np.polyval(self.scale_coefficients, t - self.t0_s) / self.scale_coefficients[-1] - 1.0
+        return np.polyval(self.scale_coefficients, t - self.t0_s) / self._q_ref() - 1.0
+
+    def _q_ref(self) -> float:
+        """q at the time the curve refers to."""
+        at = self.t0_s if self.scale_at_s is None else self.scale_at_s
+        return float(np.polyval(self.scale_coefficients, at - self.t0_s))
 
     def std_rad(self, t_s: np.ndarray, phase_rad: np.ndarray | float = 0.0) -> np.ndarray:
         """Standard uncertainty (rad) of the drift correction at times ``t_s`` (s) for phases ``phase_rad``.
@@ -90,10 +97,11 @@ class DriftModel:
         phase = np.broadcast_to(np.asarray(phase_rad, dtype=float), t.shape)
         q = np.asarray(self.scale_coefficients)
         powers = np.vander(t, q.size)
-        b0 = q[-1]
+        at = np.vander(np.atleast_1d((self.t0_s if self.scale_at_s is None else self.scale_at_s) - self.t0_s),
+                       q.size)[0]
+        b0 = self._q_ref()
         one_plus_s = (powers @ q) / b0
-        ds_dq = powers / b0
-        ds_dq[:, -1] -= (powers @ q) / b0**2
+        ds_dq = powers / b0 - np.outer(powers @ q, at) / b0**2
         jac = np.column_stack([-piston / one_plus_s[:, None], -(phase / one_plus_s)[:, None] * ds_dq])
         cov = np.asarray(self.joint_covariance)
         return np.sqrt(np.maximum(np.einsum("ij,jk,ik->i", jac, cov, jac), 0.0))
@@ -107,7 +115,8 @@ class DriftModel:
             out.update(scale_model=f"scale: polynomial of degree {len(self.scale_coefficients) - 1} in time, "
                                    f"from visits of gray {self.scale_gray}",
                        scale_gray=self.scale_gray, scale_visits=self.scale_visits,
-                       scale_coefficients_rad_per_s_power=list(self.scale_coefficients), scale_span=self.scale_span)
+                       scale_coefficients_rad_per_s_power=list(self.scale_coefficients), scale_span=self.scale_span,
+                       curve_at_s=self.t0_s if self.scale_at_s is None else self.scale_at_s)
         return out
 
 
@@ -362,6 +371,8 @@ def _drift_model(t, phi, err, is_scale, scale_gray) -> DriftModel:
     x = (t - t0) / span
     blocks = [np.ones(t.size, bool)] + ([is_scale] if is_scale.any() else [])
     degrees, coeffs, cov, chi2 = _polyfit_select(x, phi, err, blocks)
+    # Scatter the visits' errors still miss widens the covariance by the Birge ratio, so it reaches the levels.
+    cov = cov * max(chi2 / max(t.size - sum(d + 1 for d in degrees), 1), 1.0)
     unscale = np.concatenate([span ** -np.arange(d, -1, -1.0) for d in degrees])
     coeffs, cov = coeffs * unscale, cov * np.outer(unscale, unscale)
     n_p = degrees[0] + 1
@@ -581,7 +592,7 @@ def estimator_floor_rad(gray, difference_rad) -> float:
     return math.sqrt(max(excess, 0.0))
 
 
-def _remove_drift(gray, phase, std, time_s, contrast, cyclic, reference_gray, scale_gray, warnings):
+def _remove_drift(gray, phase, std, time_s, contrast, cyclic, reference_gray, scale_gray, warnings, scale_at_s=None):
     """Fit the drift model to the reference visits and return it (or None) with the frames' corrected phases.
 
     With a second reference gray the scale acts on unwrapped phase: each frame takes the 2 pi branch of its level
@@ -591,6 +602,9 @@ def _remove_drift(gray, phase, std, time_s, contrast, cyclic, reference_gray, sc
     # Visits are counted in time order so that frames handed over shuffled still group correctly.
     order = np.argsort(time_s, kind="stable")
     visit = _visits(is_ref, order)
+    # A visit of two frames can show almost no scatter by chance: each frame's error takes the frames' pooled
+    # spread beyond their stated std (vibration, flicker), from every run of back-to-back frames of one gray.
+    std = np.sqrt(std**2 + _pooled_excess(gray, phase, std, order))
     if len(np.unique(visit[is_ref])) < 2:
         if scale_gray is not None:
             warnings.append(f"reference gray {reference_gray} was measured in fewer than two visits: no drift model")
@@ -610,15 +624,32 @@ def _remove_drift(gray, phase, std, time_s, contrast, cyclic, reference_gray, sc
     sel = is_ref | is_sc
     drift = fit_drift_scale(time_s[sel], phase[sel], std[sel], np.where(is_sc, visit_sc, visit)[sel], is_sc[sel],
                             float(rough[first.gray == scale_gray][0]), scale_gray)
+    if scale_at_s is not None:
+        drift = replace(drift, scale_at_s=float(scale_at_s))
     branch = rough[np.searchsorted(first.gray, gray)]
     unwrapped = branch + np.angle(np.exp(1j * (phase - drift(time_s) - branch)))
     return drift, np.angle(np.exp(1j * unwrapped / (1 + drift.scale(time_s))))
 
 
+def _pooled_excess(gray, phase, std, order) -> float:
+    """Variance (rad^2) of frames beyond their stated std, pooled over runs of consecutive frames of one gray."""
+    g, p, e = gray[order], phase[order], std[order]
+    starts = np.flatnonzero(np.r_[True, g[1:] != g[:-1]])
+    ends = np.r_[starts[1:], g.size]
+    num, dof = 0.0, 0
+    for a, b in zip(starts, ends):
+        if b - a < 2:
+            continue
+        dev = np.angle(np.exp(1j * (p[a:b] - np.angle(np.mean(np.exp(1j * p[a:b]))))))
+        num += float(np.sum(dev**2) - (b - a - 1) * np.mean(e[a:b] ** 2))
+        dof += b - a - 1
+    return max(num / dof, 0.0) if dof else 0.0
+
+
 def phase_curve(gray, phase_rad, std_rad, time_s=None, contrast=None, reference_gray: int = 0,
                 sign: int | None = None, smooth: bool = False, *, direction: str = "unknown",
                 direction_basis: str | None = None, amplitude=None, scale_gray: int | None = None,
-                check_phase_rad=None) -> PhaseCurve:
+                check_phase_rad=None, scale_at_s: float | None = None) -> PhaseCurve:
     """Build the phase curve from per-frame results in acquisition order.
 
     ``time_s`` defaults to the acquisition index. ``direction`` ("rising", "falling") is how the panel's phase runs
@@ -634,7 +665,8 @@ def phase_curve(gray, phase_rad, std_rad, time_s=None, contrast=None, reference_
     (levels of three or more frames) and levels that far off a line through their neighbours are rejected and
     listed. ``check_phase_rad``, the same frames' phases by a second, independent estimator, sizes a systematic
     floor from the two's disagreement (see estimator_floor_rad). ``std_rad`` of the result is the combined
-    uncertainty of ``budget``.
+    uncertainty of ``budget``. ``scale_at_s`` (s) is the time whose panel a scale-corrected curve describes
+    (default: the first reference visit).
     """
     gray = np.asarray(gray, dtype=int)
     phase = np.asarray(phase_rad, dtype=float)
@@ -669,7 +701,7 @@ def phase_curve(gray, phase_rad, std_rad, time_s=None, contrast=None, reference_
         if amp.shape != (n,) or not np.all(np.isfinite(amp) & (amp > 0)):
             raise CurveError("amplitude: expected one positive, finite fringe amplitude per frame")
         try:
-            leak = fit_leak(gray, amp * np.exp(1j * phase), std * amp)
+            leak = fit_leak(gray, amp * np.exp(1j * phase), std * amp, time_s=time_s)
         except ValueError as exc:
             warnings.append(f"cyclic error not fitted: {exc}")
         if leak is not None:
@@ -679,7 +711,8 @@ def phase_curve(gray, phase_rad, std_rad, time_s=None, contrast=None, reference_
                 warnings.append(f"cyclic error of a leak |L|/a = {leak.ratio:.4f} +- {leak.ratio_std:.4f} "
                                 f"{leak.reason}; the error left in is carried in the uncertainty")
 
-    drift, phase = _remove_drift(gray, phase, std, time_s, contrast, cyclic, reference_gray, scale_gray, warnings)
+    drift, phase = _remove_drift(gray, phase, std, time_s, contrast, cyclic, reference_gray, scale_gray, warnings,
+                                 scale_at_s)
 
     lv = _level_stats(gray, phase, std, time_s, contrast, cyclic)
     pixel, scatter, excess, dof, own = _frame_scatter(lv)

@@ -18,6 +18,11 @@ along the circle, not off it. The fit therefore takes the raw z, before any drif
 drift would smear L over an arc. A slow change of L itself (the zero order's strength follows the grating's phase
 step as the panel warms) is left in the residual.
 
+Warming turns a cover-glass ghost against the panel's light (the glass's optical path grows), so L can move during a
+sweep: given the frames' times, the centre may move linearly in time, L(t) = L + (2 (t - t_mid) / span) L', a term
+kept only when it lowers chi-square by AMPLITUDE_TERM_CHI2 (points of one phase at many times, such as the drift
+references, pin it).
+
 The circle is told from a smooth amplitude change only when the phases cover most of the circle: with less than
 MIN_ARC_RAD the amplitude is held constant (the only radius a short arc pins down), the fit is reported but never
 applied, and the possible error it describes is carried as an uncertainty instead.
@@ -42,9 +47,10 @@ RESIDUAL_HARMONICS = (2, 3)   # radial harmonics of the phase a single leak cann
 class LeakFit:
     """A fitted leak phasor and the phase correction it implies for each input point.
 
-    ``ratio`` is |L| / a with a the fitted amplitude averaged over the points, ``leak_phase_rad`` arg L (the camera
+    ``leak`` is L at the middle of the points' times, ``leak_drift`` L' (the change from there to the last time;
+    0 when not fitted). ``ratio`` is |L| / a with a the fitted amplitude averaged over the points, ``leak_phase_rad`` arg L (the camera
     frame of the carrier), each with its standard uncertainty. ``significance`` is sqrt(L^T C^-1 L) with C the
-    covariance of (Re L, Im L): the distance of L from zero in standard errors. ``correction_rad`` is what to add to
+    covariance of (Re L, Im L) (with L', of all four): the distance of L from zero in standard errors. ``correction_rad`` is what to add to
     each point's phase (zero where not applied); ``correction_std_rad`` its standard uncertainty, or, where the
     correction is not applied, the cyclic error left in (the would-be correction and its uncertainty combined).
     ``residual_rad`` is the RMS phase error of the distortion the circle model leaves (harmonics 2 and 3 of the
@@ -66,6 +72,7 @@ class LeakFit:
     correction_rad: np.ndarray
     correction_std_rad: np.ndarray
     reason: str
+    leak_drift: complex = 0j
 
     @property
     def peak_error_rad(self) -> float:
@@ -78,7 +85,9 @@ class LeakFit:
                 "leak_phase_rad": self.leak_phase_rad, "leak_phase_std_rad": self.leak_phase_std_rad,
                 "significance_sigma": self.significance, "peak_error_rad": self.peak_error_rad,
                 "arc_rad": self.arc_rad, "amplitude_degree": self.amplitude_degree,
-                "chi2_per_dof": self.chi2_per_dof, "residual_rad": self.residual_rad}
+                "chi2_per_dof": self.chi2_per_dof, "residual_rad": self.residual_rad,
+                "leak_drift_ratio": abs(self.leak_drift) / max(abs(self.leak) / max(self.ratio, 1e-300), 1e-300)
+                if self.ratio > 0 else 0.0}
 
 
 def leak_phase_error_rad(phase_rad, ratio: float, leak_phase_rad: float) -> np.ndarray:
@@ -103,7 +112,7 @@ def kasa_centre(z: np.ndarray) -> complex:
     return complex(sol[0], sol[1])
 
 
-def fit_leak(gray, z, z_std, *, significance: float = SIGNIFICANCE) -> LeakFit:
+def fit_leak(gray, z, z_std, *, significance: float = SIGNIFICANCE, time_s=None) -> LeakFit:
     """Fit the leak phasor L and a smooth amplitude a(g) to complex fringe amplitudes z (one per frame or level).
 
     ``z_std`` is each point's standard uncertainty per component, in the unit of z (for an estimator that states
@@ -111,7 +120,8 @@ def fit_leak(gray, z, z_std, *, significance: float = SIGNIFICANCE) -> LeakFit:
     AMPLITUDE_TERM_CHI2; the covariance is scaled by chi-square per degree of freedom when that exceeds 1, so
     scatter the stated stds miss (laser power, vibration off the circle) widens the errors rather than hiding.
     The correction is applied when L lies ``significance`` standard errors or more from zero and the phases cover
-    MIN_ARC_RAD; the reason is recorded either way.
+    MIN_ARC_RAD; the reason is recorded either way. ``time_s`` (s, one per point) lets the leak move linearly in
+    time (see the module docstring).
     """
     g = np.asarray(gray, float)
     z = np.asarray(z, complex)
@@ -122,6 +132,12 @@ def fit_leak(gray, z, z_std, *, significance: float = SIGNIFICANCE) -> LeakFit:
         raise ValueError(f"z: expected at least {2 * MAX_AMPLITUDE_DEGREE + 4} points for a leak fit, got {z.size}")
     span = max(float(np.ptp(g)), 1e-9)
     x = 2 * (g - g.min()) / span - 1  # gray mapped onto [-1, 1] keeps the amplitude polynomial well conditioned
+    tau = np.zeros(z.size)
+    if time_s is not None:
+        t = np.asarray(time_s, float)
+        if t.shape != z.shape:
+            raise ValueError("time_s: expected one time per point")
+        tau = (2 * t - t.min() - t.max()) / max(float(np.ptp(t)), 1e-9)
 
     start = kasa_centre(z)
     if not np.isfinite(start) or abs(start) > 0.5 * float(np.median(np.abs(z))):
@@ -129,45 +145,59 @@ def fit_leak(gray, z, z_std, *, significance: float = SIGNIFICANCE) -> LeakFit:
     arc = arc_covered_rad(np.angle(z - start))
     max_degree = MAX_AMPLITUDE_DEGREE if arc >= MIN_ARC_RAD else 0
 
-    def solve(degree: int, centre: complex):
+    def solve(degree: int, centre: complex, moving: bool, drift: complex = 0j):
         powers = np.vander(x, degree + 1)
+        n_l = 4 if moving else 2
 
         def residual(p):
-            return (np.abs(z - complex(p[0], p[1])) - powers @ p[2:]) / sigma
+            centres = complex(p[0], p[1]) + (tau * complex(p[2], p[3]) if moving else 0)
+            return (np.abs(z - centres) - powers @ p[n_l:]) / sigma
 
-        radius = np.abs(z - centre)
-        p0 = np.r_[centre.real, centre.imag, np.linalg.lstsq(powers / sigma[:, None], radius / sigma, rcond=None)[0]]
+        radius = np.abs(z - centre - tau * drift)
+        start_l = [centre.real, centre.imag] + ([drift.real, drift.imag] if moving else [])
+        p0 = np.r_[start_l, np.linalg.lstsq(powers / sigma[:, None], radius / sigma, rcond=None)[0]]
         fit = optimize.least_squares(residual, p0, method="lm", x_scale="jac")
-        return fit.x, fit.jac, float(np.sum(fit.fun**2)), powers
+        return fit.x, fit.jac, float(np.sum(fit.fun**2)), powers, n_l
 
-    params, jac, chi2, powers = solve(0, start)
+    params, jac, chi2, powers, n_l = solve(0, start, False)
     degree = 0
     for trial_degree in range(1, max_degree + 1):
-        trial = solve(trial_degree, complex(params[0], params[1]))
+        trial = solve(trial_degree, complex(params[0], params[1]), False)
         if chi2 - trial[2] < AMPLITUDE_TERM_CHI2:
             break
-        params, jac, chi2, powers = trial
+        params, jac, chi2, powers, n_l = trial
         degree = trial_degree
+    if time_s is not None and max_degree:
+        trial = solve(degree, complex(params[0], params[1]), True)
+        if chi2 - trial[2] >= AMPLITUDE_TERM_CHI2:
+            params, jac, chi2, powers, n_l = trial
     dof = max(z.size - params.size, 1)
     chi2_dof = chi2 / dof
     cov = np.linalg.pinv(jac.T @ jac) * max(chi2_dof, 1.0)
     leak = complex(params[0], params[1])
-    amplitude = powers @ params[2:]
+    drift = complex(params[2], params[3]) if n_l == 4 else 0j
+    centres = leak + tau * drift
+    amplitude = powers @ params[n_l:]
     mean_amp = float(amplitude.mean())
-    arc = arc_covered_rad(np.angle(z - leak))
+    arc = arc_covered_rad(np.angle(z - centres))
 
     cov_l = cov[:2, :2]
     lvec = np.array([leak.real, leak.imag])
-    signif = float(math.sqrt(max(lvec @ np.linalg.pinv(cov_l) @ lvec, 0.0)))
+    lall = params[:n_l]
+    signif = float(math.sqrt(max(lall @ np.linalg.pinv(cov[:n_l, :n_l]) @ lall, 0.0)))
     mod = abs(leak)
-    d_ratio = np.r_[lvec / max(mod, 1e-300) / mean_amp, -mod / mean_amp**2 * powers.mean(axis=0)]
+    d_ratio = np.r_[lvec / max(mod, 1e-300) / mean_amp, np.zeros(n_l - 2),
+                    -mod / mean_amp**2 * powers.mean(axis=0)]
     ratio_std = float(math.sqrt(max(d_ratio @ cov @ d_ratio, 0.0)))
     d_phase = np.array([-leak.imag, leak.real]) / max(mod**2, 1e-300)
     phase_std = float(math.sqrt(max(d_phase @ cov_l @ d_phase, 0.0))) if mod > 0 else math.pi
 
-    # Gradient of arg(z - L) with respect to (Re L, Im L): (Im w, -Re w) / |w|^2, w = z - L.
-    w = z - leak
+    # Gradient of arg(z - L_i) with respect to (Re L, Im L[, Re L', Im L']): (Im w, -Re w)(1, tau) / |w|^2.
+    w = z - centres
     grad = np.column_stack([w.imag, -w.real]) / np.abs(w)[:, None] ** 2
+    if n_l == 4:
+        grad = np.column_stack([grad, tau[:, None] * grad])
+    cov_l = cov[:n_l, :n_l]
     would_be = np.angle(w) - np.angle(z)
     would_be = np.angle(np.exp(1j * would_be))
     corr_std = np.sqrt(np.maximum(np.einsum("ij,jk,ik->i", grad, cov_l, grad), 0.0))
@@ -189,8 +219,8 @@ def fit_leak(gray, z, z_std, *, significance: float = SIGNIFICANCE) -> LeakFit:
 
     residual = _harmonic_floor(np.angle(w), (np.abs(w) - amplitude) / amplitude, sigma / amplitude,
                                max(chi2_dof, 1.0))
-    return LeakFit(leak, cov_l, mod / mean_amp, ratio_std, float(np.angle(leak)), phase_std, signif, applied, arc,
-                   degree, chi2_dof, residual, correction, correction_std, reason)
+    return LeakFit(leak, cov[:2, :2], mod / mean_amp, ratio_std, float(np.angle(leak)), phase_std, signif, applied,
+                   arc, degree, chi2_dof, residual, correction, correction_std, reason, drift)
 
 
 def _harmonic_floor(theta: np.ndarray, rel_resid: np.ndarray, rel_sigma: np.ndarray, inflation: float) -> float:

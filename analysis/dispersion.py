@@ -133,11 +133,14 @@ def fit_panel(calibrations: list[Calibration]) -> PanelModel:
     if gray.size < 3:
         raise ValueError("gray: the curves share fewer than 3 gray levels; expected overlapping sweeps")
     on = [_on(c, gray) for c in calibrations]
-    if on[0][0][-1] <= on[0][0][0]:
-        raise ValueError("phase_rad: the reference curve does not rise over the common gray levels")
+    if on[0][0][-1] == on[0][0][0]:
+        raise ValueError("phase_rad: the reference curve is flat over the common gray levels; expected a change")
     ratios, ratio_std = [1.0], [0.0]
-    for phase, std in on[1:]:
+    for cal, (phase, std) in zip(calibrations[1:], on[1:]):
         r, sr = _ratio(on[0][0], on[0][1], phase, std)
+        if r <= 0:
+            raise ValueError(f"phase_rad: the {cal.wavelength_nm:g} nm curve runs the other way from the reference; "
+                             "expected curves of one sign convention")
         ratios.append(r)
         ratio_std.append(sr)
     lams = np.array([c.wavelength_nm for c in calibrations], float)

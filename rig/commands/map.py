@@ -159,7 +159,8 @@ def _finish(folder: RunFolder, cfg, grid, bench, settings=None) -> dict:
             mirror = ~grating_half(r.width, r.height, layout)
             cols, rows = np.flatnonzero(mirror.any(axis=0)), np.flatnonzero(mirror.any(axis=1))
             _, truth = bench.true_curve_in(r.x0 + cols[0], r.x0 + cols[-1] + 1, r.y0 + rows[0], r.y0 + rows[-1] + 1)
-            true_range = float(truth[curve.gray[-1]] - truth[curve.gray[0]])
+            # a range is a span (rad), whichever way the phase runs with gray
+            true_range = abs(float(truth[curve.gray[-1]] - truth[curve.gray[0]]))
             summary.setdefault("truth_range_rad", {})[tile.name] = true_range
             summary.setdefault("truth_range_error_rad", {})[tile.name] = summary["range_rad"][tile.name] - true_range
     m = cfg.modulator

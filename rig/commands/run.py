@@ -1,5 +1,5 @@
-"""``fringecal run``: the whole calibration from one command, unattended: exposure, tuning, sweep, phase curve
-and lookup table."""
+"""``fringecal run``: the whole calibration from one command, unattended: exposure, tuning, the sign of the phase,
+sweep, phase curve and lookup table."""
 
 from __future__ import annotations
 
@@ -7,7 +7,8 @@ from rig.options import WARMUP_MINUTES, add_run_options, add_sweep_options
 from rig.output.runs import read_result
 from rig.run.adaptive import adaptive_settings
 from rig.run.session import Session, guarded, prepare_run
-from rig.run.stages import auto_exposure, closing_lines, finish, get_ready, sweep, tune, warm_up
+from rig.run.stages import (auto_exposure, closing_lines, find_sign, finish, get_ready, scale_reference, sweep, tune,
+                            warm_up)
 
 
 def register(command) -> None:
@@ -33,6 +34,8 @@ def cmd_run(args) -> int:
             warm_up(s, cfg.pattern.grating_low, cfg.pattern.grating_high, args.warmup_minutes)
             result = tune(s, opposite)
             auto_exposure(s, result.low, result.high)  # the tuned first order is brighter than the starting pair's
+            find_sign(s, result.low, result.high)
+            scale_reference(s, opposite)
             sweep(s, result.low, result.high, adaptive=settings)
             bench = s.devices.bench
         summary = finish(folder, cfg, args.method, bench, settings)

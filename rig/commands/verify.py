@@ -5,8 +5,9 @@
     measured with the run's own engine, step generators and frame analysis (rig.run.engine.Engine,
     rig.run.measure.FrameAnalyzer).
     The same targets through the identity table (gray proportional to phase) show what the table corrects.
-(b) Efficiency: blazed gratings of a few periods over the whole panel, through the table and through the identity,
-    their first-order efficiency measured on the camera (analysis/efficiency.py says what is measured and why) and
+(b) Efficiency and sign: blazed gratings of a few periods over the whole panel, drawn to steer into the +1 order,
+    through the table and through the identity; the power in the +1 and -1 orders is measured on the camera: a table
+    of the right sign sends the light into the +1 order, and its efficiency there (analysis/efficiency.py says what is measured and why) and
     compared with sinc^2(1/N). The orders must be apart on the camera: on the simulator the same panel is viewed
     from a distance and with a beam at which they are (the "far view" below); on a live bench whose camera sees the
     overlapping near field, (b) is skipped with a note.
@@ -175,13 +176,11 @@ def _auto_exposure(devices, cfg, image, tries: int = 8) -> None:
         cam.exposure_s = min(max(cam.exposure_s * (0.5 if peak >= 0.99 else 0.6 / max(peak, 1e-3)), 1e-6), 10.0)
 
 
-def measure_efficiency(cfg, devices, tables: dict[str, Table], periods, spot_radius_um: float, frames: int,
-                       pixel_aperture_in_image: bool) -> dict:
+def measure_efficiency(cfg, devices, tables: dict[str, Table], periods, spot_radius_um: float, frames: int) -> dict:
     """First-order efficiency of blazed gratings (whole panel) through each table, and the theory per period.
 
-    ``pixel_aperture_in_image`` is False on the simulator, which samples each pixel at one point: its images hold
-    the pixel pattern's discrete spectrum without the pixel-aperture envelope, so the ratio measured there is the
-    second factor of the efficiency and is multiplied by sinc^2(1/N) (analysis/efficiency.py).
+    The images hold the pixel-aperture envelope (the panel's flat pixels on the bench, and in the simulator's
+    propagation), so the measured first-order share is compared with sinc^2(1/N) as it is.
     """
     m, cam = cfg.modulator, devices.camera
     main = tables["table"]
@@ -204,10 +203,10 @@ def measure_efficiency(cfg, devices, tables: dict[str, Table], periods, spot_rad
         for name, table in tables.items():
             grating = blazed_grays(table, n, m.width_px, m.height_px)
             zero, plus, minus = power(_grab_mean(devices, cfg, grating, frames, mirror), [0.0, dx, -dx])
-            first, other = max(plus, minus), min(plus, minus)  # which side is +1 is the panel's phase convention
-            factor = 1.0 if pixel_aperture_in_image else swanson_efficiency(n)
-            entry[name] = {"efficiency": factor * first / p_mirror, "zero_order": zero / p_mirror,
-                           "minus_first": factor * other / p_mirror}
+            # The staircase's phase grows toward +x; with the field multiplied by exp(+i phi) it steers the light
+            # toward +x, the +1 order it was drawn for. A table of the wrong sign sends it into the -1 order.
+            entry[name] = {"efficiency": plus / p_mirror, "zero_order": zero / p_mirror,
+                           "minus_first": minus / p_mirror, "steers_as_drawn": bool(plus > minus)}
         out["periods"][str(n)] = entry
     return out
 
@@ -256,8 +255,7 @@ def cmd_verify(args) -> int:
         far, spot_um = far_view(cfg, periods)
         devices = open_devices(far, True)
         try:
-            eff = measure_efficiency(far, devices, tables, periods, spot_um, args.frames,
-                                     pixel_aperture_in_image=False)
+            eff = measure_efficiency(far, devices, tables, periods, spot_um, args.frames)
         finally:
             devices.close()
         eff["far_view"] = {"distance_mm": far.geometry.distance_mm, "beam_radius_mm": far.simulator.beam.radius_mm,
@@ -287,20 +285,21 @@ def cmd_verify(args) -> int:
         fv = eff["far_view"]
         print(f"(b) first-order efficiency of blazed gratings (far view: {fv['distance_mm']:.0f} mm, beam "
               f"{fv['beam_radius_mm']:.2f} mm):")
-        print(f"    {'period px':>9} {'sinc^2(1/N)':>12} {'table':>8} {'identity':>9} {'table/theory':>13}")
+        print(f"    {'period px':>9} {'sinc^2(1/N)':>12} {'table':>8} {'identity':>9} {'table/theory':>13} "
+              f"{'table -1 order':>15} {'steers as drawn':>16}")
         for n, e in eff["periods"].items():
             ratio = e["table"]["efficiency"] / e["sinc2"]
-            passed_eff &= abs(ratio - 1) <= PASS_EFFICIENCY
+            passed_eff &= abs(ratio - 1) <= PASS_EFFICIENCY and e["table"]["steers_as_drawn"]
             print(f"    {n:>9} {100 * e['sinc2']:>11.1f}% {100 * e['table']['efficiency']:>7.1f}% "
-                  f"{100 * e['identity']['efficiency']:>8.1f}% {ratio:>13.3f}")
-        print("    (the simulator samples each pixel at a point; its measured first-order share is multiplied by the "
-              "pixel-aperture factor sinc^2(1/N))")
+                  f"{100 * e['identity']['efficiency']:>8.1f}% {ratio:>13.3f} "
+                  f"{100 * e['table']['minus_first']:>14.1f}% {'yes' if e['table']['steers_as_drawn'] else 'NO':>16}")
+        print("    (drawn for the +1 order: a table of the wrong sign would put its light into the -1 order)")
     else:
         print(f"(b) {note}")
     verdict = passed_lin and passed_eff
     print(f"verdict: {'the table passes' if verdict else 'the table does not pass'} "
           f"(residual within {PASS_LINEARITY:g} x uncertainty; efficiency within {100 * PASS_EFFICIENCY:g} % of "
-          "sinc^2(1/N))")
+          "sinc^2(1/N), in the order drawn for)")
     doc = {"created": now_iso(), "lut": str(args.lut), "wavelength_nm": cfg.laser.wavelength_nm, "simulated": sim,
            "linearity": lin, "efficiency": eff, "note": note, "passed": verdict,
            "criteria": {"linearity_rms_over_uncertainty": PASS_LINEARITY, "efficiency_relative": PASS_EFFICIENCY}}

@@ -5,7 +5,12 @@
 - ``lut.npy``: the grays as a 1-D uint16 array (NumPy format).
 - ``lut.mat``: MATLAB file with ``gray`` (uint16 row), ``target_phase_rad``, ``range_rad``, ``bit_depth``,
   ``wavelength_nm`` (NaN when not given).
-- ``lut.txt``: one gray per line, entry 0 first.
+- ``lut.txt``: a ``#`` line saying what the table holds (LookupTable.header_line), then one gray per line, entry 0
+  first (numpy.loadtxt skips the ``#`` line).
+
+A table short of 2 pi does not wrap, and a list of grays read as a 2 pi table would be wrong everywhere: every file
+but lut.json (which states ``range_rad`` and ``short_of_two_pi``) then carries the range in its name, e.g.
+``lut-range-1.60pi.npy``.
 """
 
 from __future__ import annotations
@@ -43,6 +48,7 @@ class StoredTable:
 def metadata(lut: LookupTable, source: str, created_utc: str, wavelength_nm: float | None) -> dict:
     """Everything ``lut.json`` records besides the table itself (phases in rad)."""
     return {
+        **lut.metadata_fields(), "files": list(file_names(lut)),
         "format": FORMAT_NAME, "format_version": FORMAT_VERSION, "created_utc": created_utc, "source_file": source,
         "wavelength_nm": wavelength_nm, "bit_depth": lut.bit_depth, "levels": lut.levels, "range_rad": lut.range_rad,
         "method": METHOD, "window_gray": list(lut.window), "reach_rad": lut.reach_rad,
@@ -52,8 +58,16 @@ def metadata(lut: LookupTable, source: str, created_utc: str, wavelength_nm: flo
     }
 
 
+def file_names(lut: LookupTable) -> tuple[str, ...]:
+    """The five file names of ``lut``, in FILE_NAMES order: with the range in them when it is short of 2 pi."""
+    if not lut.short_of_two_pi:
+        return FILE_NAMES
+    return tuple(n if n == "lut.json" else n.replace("lut.", f"lut-range-{lut.range_label}.") for n in FILE_NAMES)
+
+
 def write_lut_folder(folder: Path, lut: LookupTable, meta: dict) -> list[Path]:
-    """Write the five files into ``folder`` (which must exist), each atomically; return their paths."""
+    """Write the five files into ``folder`` (which must exist), each atomically, and remove table files of another
+    range left by an earlier table; return the paths written."""
     gray = lut.gray.astype(np.uint16)
     csv_text = "index,target_phase_rad,gray\n" + "".join(
         f"{i},{t:.9f},{g}\n" for i, (t, g) in enumerate(zip(lut.target_phase_rad, gray)))
@@ -70,9 +84,14 @@ def write_lut_folder(folder: Path, lut: LookupTable, meta: dict) -> list[Path]:
         "lut.json": (json.dumps({**meta, **table}, indent=1, allow_nan=False) + "\n").encode(),
         "lut.npy": npy.getvalue(),
         "lut.mat": mat.getvalue(),
-        "lut.txt": "".join(f"{g}\n" for g in gray).encode(),
+        "lut.txt": (f"# {lut.header_line()}\n" + "".join(f"{g}\n" for g in gray)).encode(),
     }
-    return [write_atomic(folder / name, contents[name]) for name in FILE_NAMES]
+    names = file_names(lut)
+    folder = Path(folder)
+    for stale in [*folder.glob("lut-range-*"), *(folder / n for n in FILE_NAMES)]:
+        if stale.name not in names and stale.is_file():
+            stale.unlink()
+    return [write_atomic(folder / name, contents[generic]) for name, generic in zip(names, FILE_NAMES)]
 
 
 def read_lut_folder(folder: str | Path) -> StoredTable:

@@ -115,7 +115,7 @@ def _figures(folder: Path, info: dict, analysis: dict, table: dict) -> tuple[lis
         figures.append(frame)
     if (folder / "journal.jsonl").is_file():
         records = read_journal(folder / "journal.jsonl").frames()
-        drift = _drift_figure(records, analysis.get("drift"))
+        drift = _drift_figure(records, analysis.get("drift"), analysis.get("reference_gray", 0))
         if drift:
             figures.append(drift)
         series = [(label, np.array([r["t_s"] for r in records if r.get(key) is not None]),
@@ -147,8 +147,9 @@ def _frame_figure(folder: Path, info: dict) -> Figure | None:
                   frame_figure(image, rect, f"gray {row['gray']}, camera counts"))
 
 
-def _drift_figure(records: list[dict], drift: dict | None) -> Figure | None:
-    refs = sorted((r for r in records if r["purpose"] == "reference" and r.get("phase_rad") is not None),
+def _drift_figure(records: list[dict], drift: dict | None, reference_gray: int) -> Figure | None:
+    refs = sorted((r for r in records if r["purpose"] == "reference" and r["gray"] == reference_gray
+                   and r.get("phase_rad") is not None),
                   key=lambda r: r["t_s"])
     if len(refs) < 2:
         return None
@@ -235,6 +236,48 @@ def _summary(info: dict, analysis: dict, table: dict, numbers: dict, curve) -> l
     return rows
 
 
+BUDGET_NAMES = {"pixel_noise": "pixel noise (A)", "frame_scatter": "frame-to-frame scatter (A)",
+                "drift": "drift model (A)", "cyclic": "cyclic correction (B)", "floor": "systematic floor (B)"}
+
+
+def _corrections(analysis: dict) -> list[tuple[str, str]]:
+    """Rows naming what the analysis removed (direction, drift, cyclic error) and what it states instead (budget)."""
+    rows = []
+    if analysis.get("direction"):
+        rows.append(("phase direction", f"{analysis['direction']} with gray ({analysis.get('direction_basis', '?')})"))
+    d = analysis.get("drift")
+    if d:
+        text = (f"piston: {d['model'].removeprefix('piston: ')} from {d['reference_visits']} reference frames, "
+                f"span {1e3 * d['span_rad']:.2f} mrad")
+        if d.get("scale_gray") is not None:
+            text += (f"; scale: from gray {d['scale_gray']} ({d['scale_visits']} frames), span "
+                     f"{100 * d['scale_span']:.3f} %, curve referred to t = {d['curve_at_s']:.1f} s")
+        rows.append(("drift removed", text))
+    elif "drift" in analysis:
+        rows.append(("drift removed", "none (the reference gray was measured in fewer than two visits)"))
+    c = analysis.get("cyclic")
+    if c:
+        rows.append(("cyclic error (leak phasor)",
+                     f"|L|/a = {c['ratio']:.4f} ± {c['ratio_std']:.4f}, phase {c['leak_phase_rad']:.3f} ± "
+                     f"{c['leak_phase_std_rad']:.3f} rad, {c['significance_sigma']:.1f} σ from zero, peak error "
+                     f"{1e3 * c['peak_error_rad']:.1f} mrad; correction {'ON' if c['applied'] else 'OFF'} "
+                     f"({c['reason']})"))
+    b = analysis.get("budget")
+    if b:
+        for key, part in b["components"].items():
+            rows.append((f"uncertainty: {BUDGET_NAMES.get(key, key)}",
+                         f"{1e3 * part['median_rad']:.3f} mrad median, {1e3 * part['max_rad']:.3f} mrad largest"))
+        rows.append(("uncertainty: combined (GUM)", f"{1e3 * b['combined_median_rad']:.3f} mrad median, "
+                                                    f"{1e3 * b['combined_max_rad']:.3f} mrad largest"))
+    t = analysis.get("truth")
+    if t:
+        rows.append(("stated std against the simulator's truth",
+                     f"χ² per level {t['chi2_per_level']:.2f}, {100 * t['within_2sigma']:.0f} % of {t['levels']} "
+                     f"levels within 2σ, error {1e3 * t['rms_error_rad']:.2f} mrad RMS "
+                     f"({1e3 * t['worst_error_rad']:.2f} worst)"))
+    return rows
+
+
 def _setup(info: dict) -> list[tuple[str, str]]:
     cfg = info.get("config", {})
     m, laser, cam = cfg.get("modulator", {}), cfg.get("laser", {}), cfg.get("camera", {})
@@ -274,13 +317,16 @@ def _setup(info: dict) -> list[tuple[str, str]]:
 
 
 def render_page(title: str, subtitle: str, summary, setup, warnings: list[str], figures: list[Figure],
-                created: str) -> str:
+                created: str, corrections=()) -> str:
     """The whole HTML page as a string (figures embedded)."""
     parts = ["<!DOCTYPE html>", '<html lang="en">', "<head>", '<meta charset="utf-8">',
              '<meta name="viewport" content="width=device-width, initial-scale=1">',
              f"<title>{html.escape(title)}</title>", f"<style>{CSS}</style>", "</head>", "<body>", "<main>",
              "<header>", f"<h1>{html.escape(title)}</h1>", f'<p class="sub">{html.escape(subtitle)}</p>', "</header>",
-             "<h2>Results</h2>", f"<table>{_rows(summary)}</table>", "<h2>Warnings</h2>"]
+             "<h2>Results</h2>", f"<table>{_rows(summary)}</table>"]
+    if corrections:
+        parts += ["<h2>Corrections and uncertainty budget</h2>", f"<table>{_rows(corrections)}</table>"]
+    parts.append("<h2>Warnings</h2>")
     if warnings:
         parts += [f'<p class="warn">{html.escape(w)}</p>' for w in warnings]
     else:
@@ -322,5 +368,6 @@ def write_report(run_dir: str | Path) -> Path:
     bench = "simulated bench" if backend == "sim" else "bench"
     subtitle = f"{nm} · {bench} · {info.get('started') or 'date not recorded'} · {folder.resolve().name}"
     page = render_page(f"Phase calibration at {nm}" if info.get("wavelength_nm") else "Phase calibration", subtitle,
-                       _summary(info, analysis, table, numbers, curve), _setup(info), warnings, figures, now_iso())
+                       _summary(info, analysis, table, numbers, curve), _setup(info), warnings, figures, now_iso(),
+                       _corrections(analysis))
     return write_atomic(folder / REPORT_HTML, page.encode("utf-8"))

@@ -64,24 +64,20 @@ def write_phase_csv(path: Path, curve, model=None) -> Path:
 
 def curve_summary(curve, survey_or_band, carrier, method: str, warnings: list[str], time_base: str,
                   automatic_roi: bool = True) -> dict:
-    """The analysis.json figures of a curve measured in a band at a carrier."""
+    """The analysis.json figures of a curve measured in a band at a carrier: its corrections (direction, drift,
+    cyclic error) and uncertainty budget with the curve's own figures; ``warnings`` come first, then the curve's."""
     s = curve.summary
     band = getattr(survey_or_band, "band", survey_or_band)
-    drift = None
-    if curve.drift is not None:
-        d = curve.drift
-        drift = {"model": f"polynomial of degree {len(d.coefficients) - 1} in time", "t0_s": d.t0_s,
-                 "coefficients_rad_per_s_power": list(d.coefficients), "reference_visits": d.n_visits,
-                 "span_rad": d.span_rad, "time_base": time_base}
+    fields = curve.analysis_fields(time_base)
     out = {
         "method": method,
         "roi": {"x0": band.x0, "x1": band.x1, "y0": band.y0, "y1": band.y1, "automatic": automatic_roi},
         "carrier": {"period_px": carrier.period_px, "angle_deg": carrier.angle_deg, "sharpness": carrier.sharpness},
-        "reference_gray": curve.reference_gray, "sign": curve.sign, "drift": drift,
+        "reference_gray": curve.reference_gray, **fields,
         "range_rad": s.range_rad, "range_pi": s.range_pi, "first_gray_2pi": s.first_gray_2pi,
         "smooth_rms_rad": s.smooth_rms_rad, "worst_std_rad": s.worst_std_rad, "worst_std_gray": s.worst_std_gray,
         "rejected_grays": list(curve.rejected_grays), "rejected_frames": len(curve.rejected_frames),
-        "warnings": list(warnings),
+        "warnings": list(warnings) + [w for w in fields["warnings"] if w not in warnings],
     }
     if hasattr(survey_or_band, "fringe_count"):
         out.update(fringe_count=survey_or_band.fringe_count, period_spread=survey_or_band.period_spread,

@@ -6,6 +6,7 @@ A source may end in ``@NM`` to give (or override) its wavelength in nm, for resu
 
 from __future__ import annotations
 
+import csv
 import json
 import math
 from dataclasses import dataclass
@@ -44,6 +45,31 @@ class JournalContents:
         again, whole, by a later session, and its earlier frames are left out."""
         final = {r["checkpoint"]: r["session"] for r in self.records if "checkpoint" in r}
         return [r for r in self.records if "frame" in r and final.get(r.get("unit")) == r["session"]]
+
+
+def read_frames_csv(path: str | Path) -> list[dict]:
+    """The frame records of a run's frames.csv (rig.run.stages.FRAME_COLUMNS; empty cells are None); UsageError
+    naming the line of a bad value."""
+    path = Path(path)
+    try:
+        rows = list(csv.DictReader(path.read_text(encoding="utf-8").splitlines()))
+    except (FileNotFoundError, UnicodeDecodeError) as err:
+        raise UsageError(f"frames.csv: cannot read {path} ({err.__class__.__name__})") from None
+    out = []
+    for line, row in enumerate(rows, start=2):
+        record = {}
+        for key, cell in row.items():
+            cell = (cell or "").strip()
+            try:
+                record[key] = (None if not cell else cell if key == "purpose"
+                               else int(cell) if key in ("frame", "gray") else float(cell))
+            except ValueError:
+                raise UsageError(f"frames.csv: {path} line {line}: column {key} expected a number, got {cell!r}") \
+                    from None
+        if record.get("gray") is None or record.get("t_s") is None or not record.get("purpose"):
+            raise UsageError(f"frames.csv: {path} line {line}: expected gray, t_s and purpose")
+        out.append(record)
+    return out
 
 
 @dataclass(frozen=True, eq=False)

@@ -63,8 +63,9 @@ def journal_rows(frame_records) -> list[tuple]:
     return [frame_row(r) for r in frame_records if r["purpose"] in ("level", "reference")]
 
 
-def fit_levels(rows: list[tuple], cfg, settings: AdaptiveSettings) -> AdaptiveFit:
+def fit_levels(rows: list[tuple], cfg, settings: AdaptiveSettings, direction: str = "unknown") -> AdaptiveFit:
     """The curve of the measured frames and the model through its levels (pure: the same rows, the same fit).
+    ``direction`` is the sign probe's ("rising", "falling"; "unknown" makes the curve rise).
 
     Rows are put in time order first, so frames met live and frames read back from the journal give the same sums.
     """
@@ -72,24 +73,25 @@ def fit_levels(rows: list[tuple], cfg, settings: AdaptiveSettings) -> AdaptiveFi
     if not rows:
         raise CurveError("adaptive sweep: no measured frame")
     gray, phase, std, t_s, contrast = (np.array(c, dtype=float) for c in zip(*rows))
-    curve = phase_curve(gray.astype(int), phase, std, t_s, contrast, cfg.sweep.reference_gray, None, smooth=False)
-    direction = 1 if curve.phase_rad[-1] >= curve.phase_rad[0] else -1
+    curve = phase_curve(gray.astype(int), phase, std, t_s, contrast, cfg.sweep.reference_gray, None, smooth=False,
+                        direction=direction)
+    way = 1 if curve.phase_rad[-1] >= curve.phase_rad[0] else -1
     shape = None
     if settings.shape_rad is not None:
         shape = check_shape(curve.gray, curve.phase_rad, curve.std_rad, settings.shape_rad, settings.shape_std_rad,
                             cfg.gray_max)
     # The earlier shape stays in the model's mean either way: when the chi-square rejects it, the residual's fitted
     # amplitude carries the misfit and the sweep goes on measuring (with the unwrapping rule) until the table is good.
-    model = adaptive.fit_model(curve.gray, curve.phase_rad, curve.std_rad, cfg.gray_max, direction,
+    model = adaptive.fit_model(curve.gray, curve.phase_rad, curve.std_rad, cfg.gray_max, way,
                                settings.shape_rad, settings.shape_std_rad)
     return AdaptiveFit(curve, model, shape)
 
 
 def adaptive_sweep_steps(cfg, low: int, high: int, settings: AdaptiveSettings, done: frozenset[str] = frozenset(),
-                        rows=(), prefix: str = "", stage: str = "sweep", log=None):
+                        rows=(), prefix: str = "", stage: str = "sweep", log=None, direction: str = "unknown"):
     """Measure the adaptive sweep's units not in ``done``; ``rows`` are the frames of the done units (frame_row).
 
-    ``log(message)`` hears each decision.
+    ``log(message)`` hears each decision; ``direction`` is the sign probe's (see fit_levels).
     """
     rows = list(rows)
     every, ref_gray = cfg.sweep.reference_every, cfg.sweep.reference_gray
@@ -133,7 +135,7 @@ def adaptive_sweep_steps(cfg, low: int, high: int, settings: AdaptiveSettings, d
             text = recorded[0].split(":", 2)[2]
             grays = [int(g) for g in text.split(",")] if text else []
         else:
-            fit = fit_levels(rows, cfg, settings)
+            fit = fit_levels(rows, cfg, settings, direction)
             decision = adaptive.decide(fit.model, cfg.modulator.bit_depth, settings.tolerance_rad, settings.budget,
                                        count["levels"],
                                        check_gaps=fit.shape is None or not unwrapped_consistently(fit.shape),
@@ -223,9 +225,10 @@ class ModelCurve:
         return out
 
 
-def finish_model(rows: list[tuple], cfg, settings: AdaptiveSettings) -> ModelCurve:
-    """The model through every measured frame of an adaptive sweep (the closing reference included)."""
-    fit = fit_levels(rows, cfg, settings)
+def finish_model(rows: list[tuple], cfg, settings: AdaptiveSettings, direction: str = "unknown") -> ModelCurve:
+    """The model through every measured frame of an adaptive sweep (the closing reference included), running the
+    sign probe's ``direction``."""
+    fit = fit_levels(rows, cfg, settings, direction)
     gray, phase, std = fit.model.curve()
     measured = np.isin(gray, fit.curve.gray)
     return ModelCurve(gray, phase, std, measured, fit, adaptive.predict_table(fit.model, cfg.modulator.bit_depth))

@@ -23,9 +23,10 @@ from typing import Callable
 
 import numpy as np
 
-from analysis.patterns import Rect, layout_of, split_in_rect, split_screen
+from analysis.patterns import Rect, layout_of, split_in_rect, split_screen, staircase_split
 from rig.errors import DeviceFault, FringecalError
-from rig.run.steps import Checkpoint, Grab, Measurement, SetExposure, Settle, ShowSplit, Stage, UseRegion, Wait
+from rig.run.steps import (Checkpoint, Grab, Measurement, SetExposure, Settle, ShowSplit, ShowStaircase, Stage,
+                           UseRegion, Wait)
 
 MAX_RETRIES = 8
 BACKOFF_S = (0.02, 0.05, 0.1, 0.2, 0.5, 1.0)
@@ -110,11 +111,19 @@ class Engine:
 
     # --- steps -----------------------------------------------------------------------------------------------
     def _execute(self, step):
-        if isinstance(step, (ShowSplit, Stage)) and self._stop:
+        if isinstance(step, (ShowSplit, ShowStaircase, Stage)) and self._stop:
             self.drain()
             raise Interrupted("stopped on request; resume to finish")
         if isinstance(step, ShowSplit):
             return self._show(step)
+        if isinstance(step, ShowStaircase):
+            m = self.cfg.modulator
+            if self._region.rect is not None:
+                raise TypeError("ShowStaircase: the sign probe is drawn on the whole panel; clear the region first")
+            return self._put(staircase_split(m.width_px, m.height_px, step.mirror_gray, step.step_grays,
+                                             layout_of(self.cfg.pattern), step.rising_away, m.bit_depth),
+                             {"event": "pattern", "mirror_gray": step.mirror_gray, "low": min(step.step_grays),
+                              "high": max(step.step_grays), "probe": "staircase"})
         if isinstance(step, Settle):
             self._deadline = self._changed_at + step.seconds
             if self.readings is not None:
@@ -154,11 +163,16 @@ class Engine:
             else:
                 self._patterns[key] = split_in_rect(m.width_px, m.height_px, Rect(*self._region.rect), *grays,
                                                     layout_of(p), self._region.background_gray, m.bit_depth)
-        self.screen.show(self._patterns[key])
+        self._put(self._patterns[key], {"event": "pattern", "mirror_gray": step.mirror_gray, "low": step.low,
+                                         "high": step.high})
+
+    def _put(self, pattern: np.ndarray, event: dict) -> None:
+        """Show ``pattern``; frames count from the change."""
+        self.screen.show(pattern)
         self._changed_at = self.clock.now()
         self._deadline = self._changed_at
         self._to_discard = self.discard_frames
-        self.publish({"event": "pattern", "mirror_gray": step.mirror_gray, "low": step.low, "high": step.high})
+        self.publish(event)
 
     def _grab(self, step: Grab):
         futures, images = [], []
@@ -240,7 +254,8 @@ class Engine:
         record = {"frame": number, "session": self.session, "unit": step.unit, "purpose": step.purpose,
                   "gray": step.gray, "t_s": round(frame.timestamp_s, 9), "sequence": frame.sequence,
                   "exposure_s": frame.exposure_s, "phase_rad": result.phase_rad, "phase_std_rad": result.phase_std_rad,
-                  "contrast": result.contrast, "peak_fraction": round(result.peak_fraction, 5),
+                  "contrast": result.contrast, "amplitude_adu": result.amplitude_adu,
+                  "background_adu": result.background_adu, "peak_fraction": round(result.peak_fraction, 5),
                   "saturated_px": result.saturated_px, **readings}
         self.publish({"event": "frame", **record, "profile": self.analyzer.profile(frame.image)})
         self._save(self._store_frame, record, frame, step)

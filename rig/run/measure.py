@@ -46,7 +46,8 @@ class FrameAnalyzer:
         except NoFringesError:
             return FrameResult(gray, purpose, t_s, sequence, expo.peak_fraction, expo.saturated_px, contrast=0.0)
         return FrameResult(gray, purpose, t_s, sequence, expo.peak_fraction, expo.saturated_px, est.phase_rad,
-                           est.std_rad, est.contrast, est.amplitude_adu)
+                           est.std_rad, est.contrast, est.amplitude_adu,
+                           None if not np.isfinite(est.background_adu) else est.background_adu)
 
     def profile(self, image: np.ndarray) -> list[float]:
         """The band averaged along the fringes, resampled to PROFILE_POINTS values (for the dashboard)."""

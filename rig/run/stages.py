@@ -8,9 +8,11 @@ import numpy as np
 
 from analysis.band import Band
 from analysis.carrier import Carrier, NoFringesError
+from analysis.agreement import agreement
 from analysis.curve import CurveError, phase_curve
 from analysis.adaptive import table_error_rad
 from analysis.lut import build_lut, monotone_cubic
+from analysis.sign import probe_direction, staircase_grays
 from rig.output.lut_files import metadata, write_lut_folder
 from rig.output.numbers import fixed
 from rig.output.report import write_report
@@ -19,7 +21,8 @@ from rig.output.runs import read_journal
 from rig.run.adaptive import AdaptiveSettings, adaptive_sweep_steps, finish_model, journal_rows
 from rig.run.folder import RunFolder
 from rig.run.session import Session
-from rig.run.steps import StepError, exposure_steps, locate_steps, opposite_gray, sweep_steps, tune_steps, warmup_steps
+from rig.run.steps import (StepError, exposure_steps, locate_steps, opposite_gray, sign_steps, sweep_steps, tune_steps,
+                           warmup_steps)
 
 MIN_TUNED_CONTRAST = 0.10
 
@@ -72,7 +75,13 @@ def check_dark(s: Session, dark: float) -> float:
 
 def auto_exposure(s: Session, low: int, high: int) -> float:
     """Exposure stage: the camera exposure (s) that brings the fringes' peak near 70 % of full scale at the grating
-    pair ``low``/``high``. Writes ``exposure_s`` into run.json; returns the exposure (s)."""
+    pair ``low``/``high``. Writes ``exposure_s`` into run.json; returns the exposure (s). A camera whose images do
+    not follow its exposure (a replay) keeps the configured one."""
+    if getattr(s.devices.camera, "fixed_images", False):
+        exposure = s.devices.camera.exposure_s
+        s.folder.update(exposure_s=exposure)
+        s.log(f"exposure {exposure * 1e3:.3f} ms kept: the camera's images do not follow its exposure")
+        return exposure
     exposure = s.engine.run(exposure_steps(s.cfg, s.devices.camera.exposure_s, low, high))
     s.folder.update(exposure_s=exposure)
     s.log(f"exposure {exposure * 1e3:.3f} ms")
@@ -83,8 +92,9 @@ def locate(s: Session, low: int, high: int) -> int:
     """Band stage: where the fringes are (band, carrier frequency, fringe count) from frames at several mirror grays;
     tries other high grays if this pair makes no fringes.
 
-    Writes ``band``, ``carrier`` and ``band_survey`` into run.json and sets the crop of saved frames; returns the
-    mirror gray whose fringes are pi from the reference gray's (for tuning). Raises StepError if no pair makes fringes.
+    Writes ``band``, ``carrier``, ``band_survey`` and ``coarse_scan`` (the grays' fringe phases) into run.json and
+    sets the crop of saved frames; returns the mirror gray whose fringes are pi from the reference gray's (for
+    tuning). Raises StepError if no pair makes fringes.
     """
     gmax = s.cfg.gray_max
     tried = []
@@ -109,6 +119,7 @@ def locate(s: Session, low: int, high: int) -> int:
               f"{c.period_px:.2f} px at {fixed(c.angle_deg, 1)} deg")
         grays = [m.results[0].gray for m in measurements]
         phases = [s.analyzer(img, g, "locate", 0.0, 0).phase_rad for img, g in zip(images, grays)]
+        s.folder.update(coarse_scan={"gray": grays, "fringe_phase_rad": phases})
         return opposite_gray(grays, phases, s.cfg.sweep.reference_gray)
     raise StepError("locate: " + "; ".join(tried))
 
@@ -143,6 +154,40 @@ def tune(s: Session, opposite: int):
     return result
 
 
+def find_sign(s: Session, low: int, high: int, frames: int = 2) -> str:
+    """Sign stage: which way the panel's phase runs with gray, from the blazed staircase probe (analysis/sign.py)
+    drawn from the band stage's coarse scan; the grating pair ``low``/``high`` is shown again afterwards.
+
+    Writes ``direction`` (the probe's figures, basis "measured") into run.json and a warning when the probe cannot
+    tell; returns "rising", "falling" or "unknown".
+    """
+    scan = s.folder.info["coarse_scan"]
+    grays = staircase_grays(scan["gray"], scan["fringe_phase_rad"], s.cfg.sweep.reference_gray,
+                            s.cfg.pattern.grating_period_px)
+    away, toward = s.engine.run(sign_steps(s.cfg, grays, frames))
+    probe = probe_direction([r.amplitude_adu or 0.0 for r in away.results],
+                            [r.amplitude_adu or 0.0 for r in toward.results], grays)
+    s.folder.update(direction=probe.summary())
+    if probe.direction == "unknown":
+        s.folder.warn(f"sign: the blazed staircase probe could not tell which way the phase runs (fringe amplitude "
+                      f"ratio {probe.ratio:.2f}); the curve is made to rise and its direction is recorded as assumed")
+    s.log(f"sign: the phase {'runs an unknown way' if probe.direction == 'unknown' else probe.direction} with gray "
+          f"(blazed staircase: fringe amplitude {probe.amplitude_away_adu:.1f} vs {probe.amplitude_toward_adu:.1f} "
+          "ADU rising away from / toward the mirror half)")
+    return probe.direction
+
+
+def scale_reference(s: Session, opposite: int) -> int | None:
+    """The second reference gray of the sweep (``sweep.second_reference_gray``; 'auto': ``opposite``, the gray about
+    pi from the reference gray). Writes ``scale_gray`` into run.json; returns it, or None for 'none'."""
+    chosen = s.cfg.sweep.second_reference_gray
+    gray = None if chosen == "none" or not s.cfg.sweep.reference_every else opposite if chosen == "auto" else chosen
+    if gray == s.cfg.sweep.reference_gray:
+        gray = None
+    s.folder.update(scale_gray=gray)
+    return gray
+
+
 def warm_up(s: Session, low: int, high: int, minutes: float) -> None:
     """Warm-up stage: the drift of the reference pattern's fringe phase (rad/min) while it is held, until it is stable
     or ``minutes`` pass (nothing is done for ``minutes`` <= 0).
@@ -164,54 +209,70 @@ def warm_up(s: Session, low: int, high: int, minutes: float) -> None:
 
 
 def sweep(s: Session, low: int, high: int, done=frozenset(), adaptive: AdaptiveSettings | None = None) -> None:
-    """Sweep stage: the fringe phase of every mirror gray at the grating pair ``low``/``high``, with drift references;
-    units whose checkpoint is in ``done`` are skipped (a resumed run). With ``adaptive`` settings only the levels the
-    model asks for are measured (rig/run/adaptive.py), each choice journaled.
+    """Sweep stage: the fringe phase of every mirror gray at the grating pair ``low``/``high``, with drift references
+    (at run.json's ``scale_gray`` too, when set); units whose checkpoint is in ``done`` are skipped (a resumed run).
+    With ``adaptive`` settings only the levels the model asks for are measured (rig/run/adaptive.py), each choice
+    journaled, with references at one gray.
 
     Writes ``pair`` into run.json, and a journal line per frame and per finished unit (frame crops in frames/);
     returns nothing.
     """
     s.folder.update(pair={**s.folder.info.get("pair", {}), "low": low, "high": high}, sweep_began=True)
     if adaptive is None:
-        s.engine.run(sweep_steps(s.cfg, low, high, done))
+        s.engine.run(sweep_steps(s.cfg, low, high, done, scale_gray=s.folder.info.get("scale_gray")))
         return
+    s.folder.update(scale_gray=None)
     rows = journal_rows(read_journal(s.folder.path / "journal.jsonl").frames()) if done else []
-    s.engine.run(adaptive_sweep_steps(s.cfg, low, high, adaptive, done, rows, log=s.log))
+    direction = (s.folder.info.get("direction") or {}).get("direction", "unknown")
+    s.engine.run(adaptive_sweep_steps(s.cfg, low, high, adaptive, done, rows, log=s.log, direction=direction))
+
+
+FRAME_COLUMNS = ("frame", "purpose", "gray", "t_s", "phase_rad", "phase_std_rad", "amplitude_adu", "background_adu",
+                 "contrast")
 
 
 def finish(folder: RunFolder, cfg, method: str, bench=None, adaptive: AdaptiveSettings | None = None) -> dict:
     """Finish stage: the phase curve (and its uncertainty) and the lookup table from the journal's frames; on the
     simulator, the error against the true curve. An adaptive sweep's table comes from its model at every gray.
 
-    Writes phase.csv, phase.png, manifest.csv, lut/, analysis.json, report.html (and truth.csv on the simulator; an
-    adaptive sweep also model.csv) and ``status`` complete into run.json; returns the summary that analysis.json holds.
+    The curve takes each frame's complex fringe amplitude (for the cyclic-error correction), the references at one
+    or two grays (piston, and scale drift referred to the sweep's middle) and the direction the sign stage measured.
+    Writes frames.csv, phase.csv, phase.png, manifest.csv, lut/, analysis.json, report.html (and truth.csv on the
+    simulator: the true curve of the panel region whose light makes the band's fringes, at the sweep's middle; an
+    adaptive sweep also model.csv) and ``status`` complete into run.json; returns the summary analysis.json holds.
     """
     contents = read_journal(folder.path / "journal.jsonl")
     frames = [r for r in contents.frames() if r["purpose"] in ("level", "reference") and r["phase_rad"] is not None]
     frames.sort(key=lambda r: r["t_s"])
     if not frames:
         raise CurveError("sweep: no measured frame in the journal")
+    folder.write_csv("frames.csv", list(FRAME_COLUMNS),
+                     ([_cell(r.get(k)) for k in FRAME_COLUMNS] for r in contents.frames() if "phase_rad" in r))
     warnings = list(folder.info.get("warnings", []))
-    curve = phase_curve([r["gray"] for r in frames], [r["phase_rad"] for r in frames],
-                        [r["phase_std_rad"] for r in frames], [r["t_s"] for r in frames],
-                        [r["contrast"] for r in frames], cfg.sweep.reference_gray, None, smooth=True)
+    curve, mid_s = curve_from_frames(frames, cfg.sweep.reference_gray, folder.info, warnings=warnings)
+    probe = folder.info.get("direction") or {}
     saturated = sorted({r["gray"] for r in frames if r["saturated_px"]})
     if saturated:
         warnings.append(f"saturated pixels in the band at grays {', '.join(map(str, saturated))}")
     if curve.rejected_grays:
         warnings.append(f"outlier gray levels left out: {', '.join(map(str, curve.rejected_grays))}")
     b, c = folder.info["band"], folder.info["carrier"]
-    summary = curve_summary(curve, Band(b["x0"], b["x1"], b["y0"], b["y1"]),
-                            Carrier(c["fx"], c["fy"], c["sharpness"]), method, warnings, "time_s")
-    model = finish_model(journal_rows(frames), cfg, adaptive) if adaptive is not None else None
+    band = Band(b["x0"], b["x1"], b["y0"], b["y1"])
+    summary = curve_summary(curve, band, Carrier(c["fx"], c["fy"], c["sharpness"]), method, warnings, "time_s")
+    summary["sign_probe"] = probe or None
+    summary["curve_at_s"] = mid_s
+    model = (finish_model(journal_rows(frames), cfg, adaptive, probe.get("direction", "unknown"))
+             if adaptive is not None else None)
     summary["sweep"] = sweep_figures(frames)
     truth = None
     if bench is not None:
-        grays, phase = bench.true_curve()
+        grays, phase = bench.sampled_true_curve((band.x0, band.x1, band.y0, band.y1), at_s=mid_s)
         folder.write_csv("truth.csv", ["gray", "phase_rad"], ((int(g), f"{p:.6f}") for g, p in zip(grays, phase)))
         truth = (grays, phase)
-        err = curve.phase_rad - phase[curve.gray]
-        summary["truth_rms_error_rad"] = float(np.sqrt(np.mean((err - err.mean()) ** 2)))
+        summary["truth"] = {"region": "panel pixels whose light makes the band's fringes, weighted by their fringe "
+                                      "amplitude", "at_s": mid_s,
+                            **agreement(curve.gray, curve.phase_rad, curve.std_rad, grays, phase).summary()}
+        summary["truth_rms_error_rad"] = summary["truth"]["rms_error_rad"]
     write_phase_csv(folder.path / "phase.csv", curve, model)
     if model is not None:
         folder.write_csv("model.csv", ["gray", "phase_rad", "phase_std_rad", "measured"],
@@ -220,19 +281,19 @@ def finish(folder: RunFolder, cfg, method: str, bench=None, adaptive: AdaptiveSe
         summary["adaptive"] = model.summary(adaptive)
     plot_curve(folder.path / "phase.png", curve, method, truth, model)
     folder.write_manifest(contents.frames())
-    if model is None:
-        table_input = (curve.gray, curve.smooth_rad if curve.smooth_rad is not None else curve.phase_rad, curve.std_rad)
+    if model is None:  # the measured curve, as it runs: the table smooths it and judges its dips itself
+        table_input = (curve.gray, curve.phase_rad, curve.std_rad)
     else:
         table_input = (model.gray, model.phase_rad, model.std_rad)
-    lut = build_lut(*table_input, bit_depth=cfg.modulator.bit_depth, smooth=model is None)
+    lut = build_lut(*table_input, bit_depth=cfg.modulator.bit_depth, smooth=model is None,
+                    direction=curve.direction if curve.direction_basis != "assumed" else None)
+    summary["warnings"] += [w for w in lut.warnings if w not in summary["warnings"]]
     if truth is not None:
         estimate = monotone_cubic(table_input[0], table_input[1], truth[0])
-        # Until the direction is established (the blazed-grating probe), the curve is made to rise; the table's
-        # error is then judged against the truth in the curve's direction, which is how the table was built.
-        turn = -1.0 if (estimate[-1] - estimate[0]) * (truth[1][-1] - truth[1][0]) < 0 else 1.0
-        summary["table_error_vs_truth_rad"] = table_error_rad(lut.gray, estimate, turn * truth[1])
+        summary["table_error_vs_truth_rad"] = table_error_rad(lut.gray, estimate, truth[1])
     (folder.path / "lut").mkdir(exist_ok=True)
     meta = metadata(lut, "phase.csv", now_iso(), cfg.laser.wavelength_nm)
+    meta["direction_basis"] = curve.direction_basis
     if model is not None:
         meta.update(method=f"adaptive sweep: {summary['adaptive']['model']}, at every gray; nearest gray per target",
                     predicted_rms_error_rad=model.table.rms_rad)
@@ -240,9 +301,11 @@ def finish(folder: RunFolder, cfg, method: str, bench=None, adaptive: AdaptiveSe
     if temperatures:  # a probe was fitted: every table says at what temperature it was measured
         meta["temperature_c"] = summary["temperature_c"] = float(np.mean(temperatures))
         summary["temperature_range_c"] = [float(min(temperatures)), float(max(temperatures))]
-    write_lut_folder(folder.path / "lut", lut, meta)
+    files = write_lut_folder(folder.path / "lut", lut, meta)
     summary["lut"] = {"folder": "lut", "window_gray": list(lut.window), "distinct_grays": lut.distinct_grays,
-                      "rms_linearity_rad": lut.rms_linearity_rad, "range_rad": lut.range_rad, "levels": lut.levels}
+                      "rms_linearity_rad": lut.rms_linearity_rad, "range_rad": lut.range_rad, "levels": lut.levels,
+                      "direction": lut.direction, "range_label": lut.range_label,
+                      "files": [f.name for f in files], "dips": [d.summary() for d in lut.dips]}
     if model is not None:
         summary["lut"]["predicted_rms_error_rad"] = model.table.rms_rad
     write_json(folder.path / "analysis.json", summary)
@@ -250,6 +313,46 @@ def finish(folder: RunFolder, cfg, method: str, bench=None, adaptive: AdaptiveSe
                   first_gray_2pi=summary["first_gray_2pi"], temperature_c=summary.get("temperature_c"))
     write_report(folder.path)  # after the status: the page says how the run ended
     return summary
+
+
+def curve_from_frames(frames: list[dict], reference_gray: int, info: dict, *, cyclic: bool = True,
+                      direction: str | None = None, warnings: list[str] | None = None):
+    """The phase curve of a sweep's frames (journal or frames.csv records, any order) as a run makes it, and the
+    time (s) it refers to (the sweep's middle).
+
+    ``info`` is the run's run.json: its ``direction`` (the sign probe's) and ``scale_gray`` are used; ``direction``
+    overrides the probe's. ``cyclic`` False leaves the fringe amplitudes out (no cyclic-error fit), to see what the
+    correction does. A missing amplitude is noted in ``warnings``.
+    """
+    frames = sorted((r for r in frames if r["purpose"] in ("level", "reference") and r["phase_rad"] is not None),
+                    key=lambda r: r["t_s"])
+    if not frames:
+        raise CurveError("sweep: no measured frame")
+    amplitude = [r.get("amplitude_adu") for r in frames]
+    if not all(a is not None and a > 0 for a in amplitude):
+        amplitude = None
+        if cyclic and warnings is not None:
+            warnings.append("no fringe amplitudes recorded: the cyclic error is neither fitted nor corrected")
+    measured = (info.get("direction") or {}).get("direction", "unknown")
+    chosen = measured if direction is None else direction
+    basis = "measured" if direction is None and measured != "unknown" else None
+    scale_gray = info.get("scale_gray")
+    times = [r["t_s"] for r in frames]
+    mid_s = 0.5 * (min(times) + max(times))
+    curve = phase_curve([r["gray"] for r in frames], [r["phase_rad"] for r in frames],
+                        [r["phase_std_rad"] for r in frames], times, [r.get("contrast") for r in frames],
+                        reference_gray, None, smooth=True, direction=chosen, direction_basis=basis,
+                        amplitude=amplitude if cyclic else None,
+                        scale_gray=scale_gray if any(r["gray"] == scale_gray for r in frames) else None,
+                        scale_at_s=mid_s)
+    return curve, mid_s
+
+
+def _cell(value) -> str:
+    """A frames.csv cell: empty for a missing value, full precision for a number."""
+    if value is None:
+        return ""
+    return repr(value) if isinstance(value, float) else str(value)
 
 
 def sweep_figures(frames: list[dict]) -> dict:
@@ -265,8 +368,13 @@ def closing_lines(folder: RunFolder, summary: dict) -> list[str]:
     lines = [f"phase range {summary['range_rad']:.3f} rad ({summary['range_pi']:.2f} π); "
              + (f"2π first reached at gray {first}" if first is not None else "2π not reached"),
              f"worst uncertainty {summary['worst_std_rad'] * 1e3:.1f} mrad at gray {summary['worst_std_gray']}"]
-    if "truth_rms_error_rad" in summary:
-        lines.append(f"against the simulator's truth: {summary['truth_rms_error_rad'] * 1e3:.1f} mrad rms")
+    lines += correction_lines(summary)
+    if "truth" in summary:
+        t = summary["truth"]
+        lines.append(f"against the simulator's truth (the sampled panel region at t = {t['at_s']:.1f} s): "
+                     f"{t['rms_error_rad'] * 1e3:.1f} mrad rms ({t['worst_error_rad'] * 1e3:.1f} worst); stated std: "
+                     f"chi-square per level {t['chi2_per_level']:.2f}, {100 * t['within_2sigma']:.0f} % of levels "
+                     "within 2 sigma")
     sw = summary["sweep"]
     if "adaptive" in summary:
         a = summary["adaptive"]
@@ -287,10 +395,33 @@ def closing_lines(folder: RunFolder, summary: dict) -> list[str]:
                  "run.json")
     sim = " --sim" if folder.info.get("devices", {}).get("camera_backend") == "sim" else ""
     lut = folder.path / "lut"
-    lines += [f"next: load {lut / 'lut.npy'} in your hologram code: entry i is the gray for the phase "
+    csv_name, _, npy_name, mat_name, txt_name = summary["lut"]["files"]
+    lines += [f"next: load {lut / npy_name} in your hologram code: entry i is the gray for the phase "
               f"{summary['lut']['range_rad']:.4f} * i / {summary['lut']['levels']} rad (README: Using the table; "
-              "lut.mat, lut.txt and lut.csv hold the same table)",
+              f"{mat_name}, {txt_name} and {csv_name} hold the same table)",
               f"next: check it on the bench: fringecal verify{sim} --lut {lut} --config {folder.path / 'config.toml'}"]
+    return lines
+
+
+def correction_lines(summary: dict) -> list[str]:
+    """The corrections applied to the curve, in words: direction, drift, cyclic error, and the budget's largest part."""
+    lines = []
+    if summary.get("direction"):
+        lines.append(f"phase {summary['direction']} with gray ({summary.get('direction_basis')})")
+    d = summary.get("drift")
+    if d:
+        scale = (f" and scale from gray {d['scale_gray']} (span {100 * d['scale_span']:.2f} %)"
+                 if d.get("scale_gray") is not None else " only (one reference gray)")
+        lines.append(f"drift removed: piston ({1e3 * d['span_rad']:.1f} mrad span){scale}")
+    c = summary.get("cyclic")
+    if c:
+        lines.append(f"cyclic error: leak |L|/a = {c['ratio']:.4f} +- {c['ratio_std']:.4f} "
+                     f"({1e3 * c['peak_error_rad']:.1f} mrad peak), correction {'applied' if c['applied'] else 'off'}")
+    b = summary.get("budget")
+    if b:
+        worst = max(b["components"].items(), key=lambda kv: kv[1]["median_rad"])
+        lines.append(f"uncertainty budget: {1e3 * b['combined_median_rad']:.2f} mrad median per level, largest part "
+                     f"{worst[0].replace('_', ' ')} ({1e3 * worst[1]['median_rad']:.2f} mrad)")
     return lines
 
 

@@ -27,6 +27,16 @@ class ShowSplit:
 
 
 @dataclass(frozen=True)
+class ShowStaircase:
+    """Put the sign probe on the panel: ``mirror_gray`` on the mirror half, a blazed staircase of ``step_grays``
+    on the other, rising away from the mirror half or toward it (analysis.patterns.staircase_split)."""
+
+    mirror_gray: int
+    step_grays: tuple[int, ...]
+    rising_away: bool
+
+
+@dataclass(frozen=True)
 class UseRegion:
     """Draw later split patterns inside ``rect`` (x0, x1, y0, y1 panel px) with ``background_gray`` elsewhere;
     ``rect=None`` goes back to the whole panel."""
@@ -61,7 +71,7 @@ class Grab:
     """Grab ``frames`` good frames and analyse them; ``wait`` returns the Measurement to the generator."""
 
     frames: int
-    purpose: str  # exposure | locate | tune | level | reference
+    purpose: str  # exposure | locate | tune | sign | level | reference
     gray: int
     wait: bool = False
     keep: bool = False  # save the frames' band crops in the run folder
@@ -98,7 +108,8 @@ class FrameResult:
     phase_rad: float | None = None
     phase_std_rad: float | None = None
     contrast: float | None = None
-    amplitude_adu: float | None = None
+    amplitude_adu: float | None = None  # fringe amplitude: with phase_rad, the frame's complex fringe amplitude
+    background_adu: float | None = None  # band-mean background under the fringes (dark included)
 
 
 @dataclass(frozen=True)
@@ -188,6 +199,19 @@ def opposite_gray(grays, phases_rad, reference_gray: int) -> int:
     return int(fine[np.argmin(np.abs(wrapped))])
 
 
+# --- the sign of the phase --------------------------------------------------------------------------------
+def sign_steps(cfg, step_grays: tuple[int, ...], frames: int = 2):
+    """Show the blazed staircase probe rising away from the mirror half, then toward it (analysis/sign.py says
+    why); return the two Measurements (away, toward)."""
+    yield Stage("sign", 2, what="a blazed staircase both ways round")
+    out = []
+    for away in (True, False):
+        yield ShowStaircase(cfg.sweep.reference_gray, tuple(step_grays), away)
+        yield Settle(cfg.sweep.settle_s)
+        out.append((yield Grab(frames, "sign", cfg.sweep.reference_gray, wait=True)))
+    return tuple(out)
+
+
 # --- tuning the grating pair ---------------------------------------------------------------------------------
 @dataclass(frozen=True)
 class TuneResult:
@@ -266,10 +290,12 @@ def sweep_order(levels, order: str, seed: int = 0) -> list[int]:
     return levels
 
 
-def sweep_units(cfg, seed: int = 0, prefix: str = "") -> list[tuple[str, str, int]]:
+def sweep_units(cfg, seed: int = 0, prefix: str = "", scale_gray: int | None = None) -> list[tuple[str, str, int]]:
     """The sweep as units (checkpoint key, purpose, gray): references first, every K levels, and last.
 
-    ``prefix`` keeps the keys of several sweeps in one journal apart (one sweep per tile of a map).
+    ``prefix`` keeps the keys of several sweeps in one journal apart (one sweep per tile of a map). With
+    ``scale_gray`` every reference visit measures that gray too, right after the reference gray: two reference
+    grays give the drift of the curve's scale as well as its piston (analysis.curve).
     """
     order = sweep_order(cfg.sweep_levels(), cfg.sweep.order, seed)
     every, ref = cfg.sweep.reference_every, cfg.sweep.reference_gray
@@ -278,6 +304,8 @@ def sweep_units(cfg, seed: int = 0, prefix: str = "") -> list[tuple[str, str, in
     def reference():
         nonlocal refs
         units.append((f"{prefix}reference:{refs}", "reference", ref))
+        if scale_gray is not None:
+            units.append((f"{prefix}scale-reference:{refs}", "reference", scale_gray))
         refs += 1
 
     if every:
@@ -290,9 +318,9 @@ def sweep_units(cfg, seed: int = 0, prefix: str = "") -> list[tuple[str, str, in
 
 
 def sweep_steps(cfg, low: int, high: int, done: frozenset[str] = frozenset(), seed: int = 0, prefix: str = "",
-               stage: str = "sweep"):
+               stage: str = "sweep", scale_gray: int | None = None):
     """Measure every unit of the sweep not in ``done``; frames are analysed and journaled as they come."""
-    units = sweep_units(cfg, seed, prefix)
+    units = sweep_units(cfg, seed, prefix, scale_gray)
     references = sum(purpose == "reference" for _, purpose, _ in units)
     yield Stage(stage, len(units), sum(key in done for key, _, _ in units),
                 what=f"{len(units) - references} gray levels + {references} drift reference"
@@ -357,5 +385,7 @@ def run_seconds(cfg, frame_rate_hz: float) -> float:
     per_frame = cfg.camera.exposure_s
     if cfg.camera.trigger == "free-run":
         per_frame = max(1.0 / frame_rate_hz, per_frame)
-    return len(sweep_units(cfg)) * (cfg.sweep.settle_s + cfg.sweep.frames_per_level * per_frame)
+    two = cfg.sweep.second_reference_gray != "none" and cfg.sweep.reference_every > 0
+    units = sweep_units(cfg, scale_gray=cfg.sweep.reference_gray if two else None)  # any gray counts the same
+    return len(units) * (cfg.sweep.settle_s + cfg.sweep.frames_per_level * per_frame)
 
