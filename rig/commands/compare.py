@@ -23,7 +23,8 @@ from analysis.dispersion import fit_panel, predict, scale
 from analysis.lut import build_lut
 from rig.atomic import write_atomic
 from rig.errors import UsageError
-from rig.options import output_folder
+from rig.options import WAVELENGTH, output_folder
+from rig.output.provenance import claim_output, prediction_source
 from rig.output.figures import prediction_figure, wavelengths_figure
 from rig.output.lut_files import metadata, write_lut_folder
 from rig.output.results import now_iso, write_json
@@ -132,9 +133,8 @@ def cmd_predict(args) -> int:
     """
     if len(args.sources) < 2:
         raise UsageError(f"--from: expected at least 2 calibrations of the panel, got {len(args.sources)}")
-    if not (math.isfinite(args.wavelength_nm) and args.wavelength_nm > 0):
-        raise UsageError(f"--wavelength-nm: expected a wavelength > 0 nm, got {args.wavelength_nm}")
     out = output_folder(args.out)
+    claim_output(out, prediction_source(args.sources, args.wavelength_nm), args.force)
     results = [read_result(spec, "--from") for spec in args.sources]
     model = _fit(results, "--from")
     pred = predict(model, args.wavelength_nm)
@@ -198,5 +198,7 @@ def register(command) -> None:
                 config=None)
     p.add_argument("--from", dest="sources", nargs="+", required=True, metavar="RUN",
                    help="two or more calibrations of the panel (run folders, or PATH@NM)")
-    p.add_argument("--wavelength-nm", type=float, required=True, metavar="NM", help="wavelength to predict")
+    p.add_argument("--wavelength-nm", type=WAVELENGTH, required=True, metavar="NM", help="wavelength to predict")
     p.add_argument("--out", required=True, metavar="DIR", help="folder for phase.csv, prediction.json/png and lut/")
+    p.add_argument("--force", action="store_true",
+                   help="write into --out even if it holds a run, or results made from another source")
