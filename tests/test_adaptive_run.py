@@ -29,14 +29,14 @@ def test_adaptive_run_on_the_demo_bench(tmp_path, capsys):
     """`run --sim --adaptive` on the demo bench: its summary states the table's error against the truth, manifest.csv
     holds at most a quarter of the frames a full sweep takes, and phase.csv has a row for every gray, the measured
     ones marked and each with a positive std. The demo bench's cover-glass ghost (0.5 %: a cyclic error of 70.5 mrad
-    peak, tests/test_cover_glass.py) and warming are not corrected by the sweep's finish yet, so the table error is
-    held only below that peak (achieved 59 mrad); the 10 mrad target is met on the benchmark's panels."""
+    peak, tests/test_cover_glass.py) is corrected from the frames' fringe amplitudes and the warming by the second
+    reference gray, so the table is within the issue's 10 mrad of the truth (achieved 4.9 mrad, 25 levels)."""
     out = tmp_path / "run"
     assert main(["run", "--sim", "--adaptive", "--out", str(out)]) == 0
     text = capsys.readouterr().out
     assert "table error against the simulator's truth" in text and "adaptive sweep:" in text
     summary = json.loads((out / "analysis.json").read_text())
-    assert summary["table_error_vs_truth_rad"] < 0.0705
+    assert summary["table_error_vs_truth_rad"] < 0.010
     cfg = load_config(out / "config.toml")
     full_frames = len(sweep_units(cfg)) * cfg.sweep.frames_per_level
     assert len(read_csv(out / "manifest.csv")) <= full_frames / 4
@@ -259,7 +259,7 @@ def test_predicted_table_error_is_honest_with_every_non_ideality_over_seeds(tmp_
     8 seeds at the default tolerance: the table's actual error against the truth is within twice its predicted
     error (a 2 sigma bound on the RMS) in >= 90 % of the sweeps, and >= 90 % of the grays inside the table's window
     lie within 2 sigma of the truth (piston removed). Not pessimistic either: the median actual/predicted ratio is
-    above 0.2 (achieved: about 0.5)."""
+    above 0.35 (achieved: 0.37 to 0.98, median about 0.7; 96 to 100 % of the grays within 2 sigma)."""
     ratios, inside = [], []
     for seed in range(1, 9):
         out = tmp_path / f"s{seed}"
@@ -276,4 +276,4 @@ def test_predicted_table_error_is_honest_with_every_non_ideality_over_seeds(tmp_
     ratios = np.array(ratios)
     assert np.mean(ratios <= 2.0) >= 0.9, ratios
     assert np.mean(inside) >= 0.9, inside
-    assert np.median(ratios) > 0.2, ratios
+    assert np.median(ratios) > 0.35, ratios
