@@ -11,8 +11,9 @@ not the measurement's, and is left out).
 
 The warming ramp (6 K/min) makes the long sweeps the hard ones: the adaptive sweep takes a few seconds of bench time,
 the full sweep 35 s at 8 bits, about 140 s at 10 and 550 s at 12, so the full sweep's panel warms by up to about
-55 K while it measures; its drift references remove piston and scale, but not the change of the curve's shape, so its
-table error (against the truth at the sweep's middle) reaches tens to hundreds of mrad on some 10- and 12-bit panels.
+55 K while it measures, and its table error (against the truth at the sweep's middle) reaches tens to hundreds of mrad
+on some 10- and 12-bit panels, although it visits two reference grays; which part of the warming its piston-and-scale
+drift model leaves in is not yet diagnosed.
 """
 
 import contextlib
