@@ -212,19 +212,20 @@ def sweep(s: Session, low: int, high: int, done=frozenset(), adaptive: AdaptiveS
     """Sweep stage: the fringe phase of every mirror gray at the grating pair ``low``/``high``, with drift references
     (at run.json's ``scale_gray`` too, when set); units whose checkpoint is in ``done`` are skipped (a resumed run).
     With ``adaptive`` settings only the levels the model asks for are measured (rig/run/adaptive.py), each choice
-    journaled, with references at one gray.
+    journaled, with the same references.
 
     Writes ``pair`` into run.json, and a journal line per frame and per finished unit (frame crops in frames/);
     returns nothing.
     """
     s.folder.update(pair={**s.folder.info.get("pair", {}), "low": low, "high": high}, sweep_began=True)
+    scale_gray = s.folder.info.get("scale_gray")
     if adaptive is None:
-        s.engine.run(sweep_steps(s.cfg, low, high, done, scale_gray=s.folder.info.get("scale_gray")))
+        s.engine.run(sweep_steps(s.cfg, low, high, done, scale_gray=scale_gray))
         return
-    s.folder.update(scale_gray=None)
     rows = journal_rows(read_journal(s.folder.path / "journal.jsonl").frames()) if done else []
     direction = (s.folder.info.get("direction") or {}).get("direction", "unknown")
-    s.engine.run(adaptive_sweep_steps(s.cfg, low, high, adaptive, done, rows, log=s.log, direction=direction))
+    s.engine.run(adaptive_sweep_steps(s.cfg, low, high, adaptive, done, rows, log=s.log, direction=direction,
+                                      scale_gray=scale_gray))
 
 
 FRAME_COLUMNS = ("frame", "purpose", "gray", "t_s", "phase_rad", "phase_std_rad", "amplitude_adu", "background_adu",
@@ -261,8 +262,8 @@ def finish(folder: RunFolder, cfg, method: str, bench=None, adaptive: AdaptiveSe
     summary = curve_summary(curve, band, Carrier(c["fx"], c["fy"], c["sharpness"]), method, warnings, "time_s")
     summary["sign_probe"] = probe or None
     summary["curve_at_s"] = mid_s
-    model = (finish_model(journal_rows(frames), cfg, adaptive, probe.get("direction", "unknown"))
-             if adaptive is not None else None)
+    model = (finish_model(journal_rows(frames), cfg, adaptive, probe.get("direction", "unknown"),
+                          folder.info.get("scale_gray")) if adaptive is not None else None)
     summary["sweep"] = sweep_figures(frames)
     truth = None
     if bench is not None:
