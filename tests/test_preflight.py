@@ -138,6 +138,6 @@ def test_preflight_command_on_the_two_monitor_display_reports_every_item(tmp_pat
     assert f"display {panel.index}" in out
     assert "7 passed, 0 failed, 3 not fitted" in out
     assert code == 0
-    config.write_text(config.read_text() + "[laser]\nwavelength_nm = 20\n")
+    config.write_text(config.read_text().replace("[laser]\n", "[laser]\nwavelength_nm = 20\n", 1))
     assert main(["preflight", "--config", str(config)]) == 2
     assert "[laser.wavelength_nm]" in capsys.readouterr().err
