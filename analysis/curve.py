@@ -649,7 +649,7 @@ def _pooled_excess(gray, phase, std, order) -> float:
 def phase_curve(gray, phase_rad, std_rad, time_s=None, contrast=None, reference_gray: int = 0,
                 sign: int | None = None, smooth: bool = False, *, direction: str = "unknown",
                 direction_basis: str | None = None, amplitude=None, scale_gray: int | None = None,
-                check_phase_rad=None, scale_at_s: float | None = None) -> PhaseCurve:
+                check_phase_rad=None, scale_at_s: float | None = None, leak_in_time: bool = True) -> PhaseCurve:
     """Build the phase curve from per-frame results in acquisition order.
 
     ``time_s`` defaults to the acquisition index. ``direction`` ("rising", "falling") is how the panel's phase runs
@@ -666,8 +666,14 @@ def phase_curve(gray, phase_rad, std_rad, time_s=None, contrast=None, reference_
     listed. ``check_phase_rad``, the same frames' phases by a second, independent estimator, sizes a systematic
     floor from the two's disagreement (see estimator_floor_rad). ``std_rad`` of the result is the combined
     uncertainty of ``budget``. ``scale_at_s`` (s) is the time whose panel a scale-corrected curve describes
-    (default: the first reference visit).
+    (default: the first reference visit). ``leak_in_time`` False holds the leak fixed in time.
+
+    Where the leak is fitted as moving in time, the whole curve is made again with a fixed leak, and each level's
+    difference between the two (common piston removed) joins the cyclic component as a type-B model uncertainty
+    (GUM 4.3): the motion trades against the curve's shape in a sweep in gray order (analysis.cyclic), and its
+    error reaches every level through the drift references as well.
     """
+    gray_in = gray
     gray = np.asarray(gray, dtype=int)
     phase = np.asarray(phase_rad, dtype=float)
     std = np.asarray(std_rad, dtype=float)
@@ -701,7 +707,7 @@ def phase_curve(gray, phase_rad, std_rad, time_s=None, contrast=None, reference_
         if amp.shape != (n,) or not np.all(np.isfinite(amp) & (amp > 0)):
             raise CurveError("amplitude: expected one positive, finite fringe amplitude per frame")
         try:
-            leak = fit_leak(gray, amp * np.exp(1j * phase), std * amp, time_s=time_s)
+            leak = fit_leak(gray, amp * np.exp(1j * phase), std * amp, time_s=time_s if leak_in_time else None)
         except ValueError as exc:
             warnings.append(f"cyclic error not fitted: {exc}")
         if leak is not None:
@@ -746,11 +752,21 @@ def phase_curve(gray, phase_rad, std_rad, time_s=None, contrast=None, reference_
     else:
         basis = "given by the caller" if direction != "unknown" else "from the given sign" if sign_given else "assumed"
 
+    cyclic_level = lv.cyclic_rad[level_ok]
+    if leak is not None and leak.applied and leak.leak_drift:
+        fixed = phase_curve(gray_in, phase_rad, std_rad, time_s, contrast, reference_gray, sign, direction=direction,
+                            amplitude=amplitude, scale_gray=scale_gray, scale_at_s=scale_at_s, leak_in_time=False)
+        if fixed.cyclic is not None and fixed.cyclic.applied:
+            common, here, there = np.intersect1d(levels, fixed.gray, return_indices=True)
+            diff = np.zeros(levels.size)
+            d = curve[here] - fixed.phase_rad[there]
+            diff[here] = d - np.median(d)
+            cyclic_level = np.hypot(cyclic_level, diff)
     floor = leak.residual_rad if leak is not None else 0.0
     if disagreement is not None:
         keep = lv.keep & np.isin(gray, levels)
         floor = math.hypot(floor, estimator_floor_rad(gray[keep], disagreement[keep]))
-    budget = UncertaintyBudget(levels, pixel[level_ok], scatter[level_ok], drift_std, lv.cyclic_rad[level_ok],
+    budget = UncertaintyBudget(levels, pixel[level_ok], scatter[level_ok], drift_std, cyclic_level,
                                np.full(levels.size, floor), excess, dof,
                                tuple(int(g) for g in lv.gray[own & level_ok]))
     errors = budget.combined_rad
