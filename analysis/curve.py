@@ -649,7 +649,7 @@ def _pooled_excess(gray, phase, std, order) -> float:
 def phase_curve(gray, phase_rad, std_rad, time_s=None, contrast=None, reference_gray: int = 0,
                 sign: int | None = None, smooth: bool = False, *, direction: str = "unknown",
                 direction_basis: str | None = None, amplitude=None, scale_gray: int | None = None,
-                check_phase_rad=None, scale_at_s: float | None = None, leak_in_time: bool = True) -> PhaseCurve:
+                check_phase_rad=None, scale_at_s: float | None = None, extra_leak_terms: int = 0) -> PhaseCurve:
     """Build the phase curve from per-frame results in acquisition order.
 
     ``time_s`` defaults to the acquisition index. ``direction`` ("rising", "falling") is how the panel's phase runs
@@ -666,12 +666,13 @@ def phase_curve(gray, phase_rad, std_rad, time_s=None, contrast=None, reference_
     listed. ``check_phase_rad``, the same frames' phases by a second, independent estimator, sizes a systematic
     floor from the two's disagreement (see estimator_floor_rad). ``std_rad`` of the result is the combined
     uncertainty of ``budget``. ``scale_at_s`` (s) is the time whose panel a scale-corrected curve describes
-    (default: the first reference visit). ``leak_in_time`` False holds the leak fixed in time.
+    (default: the first reference visit). ``extra_leak_terms`` gives the leak's motion in time that many more
+    powers than the data select (analysis.cyclic.fit_leak).
 
-    Where the leak is fitted as moving in time, the whole curve is made again with a fixed leak, and each level's
-    difference between the two (common piston removed) joins the cyclic component as a type-B model uncertainty
-    (GUM 4.3): the motion trades against the curve's shape in a sweep in gray order (analysis.cyclic), and its
-    error reaches every level through the drift references as well.
+    Where a leak correction is applied to timed frames, the whole curve is made again with one more power of time
+    in the leak's motion, and each level's difference between the two (common piston removed, less the noise
+    variance the extra term adds) joins the cyclic component as a type-B model uncertainty (GUM 4.3): the motion trades against the curve's shape in a sweep in
+    gray order (analysis.cyclic), and its error reaches every level through the drift references as well.
     """
     gray_in = gray
     gray = np.asarray(gray, dtype=int)
@@ -707,7 +708,8 @@ def phase_curve(gray, phase_rad, std_rad, time_s=None, contrast=None, reference_
         if amp.shape != (n,) or not np.all(np.isfinite(amp) & (amp > 0)):
             raise CurveError("amplitude: expected one positive, finite fringe amplitude per frame")
         try:
-            leak = fit_leak(gray, amp * np.exp(1j * phase), std * amp, time_s=time_s if leak_in_time else None)
+            leak = fit_leak(gray, amp * np.exp(1j * phase), std * amp, time_s=time_s,
+                            extra_leak_terms=extra_leak_terms)
         except ValueError as exc:
             warnings.append(f"cyclic error not fitted: {exc}")
         if leak is not None:
@@ -753,15 +755,18 @@ def phase_curve(gray, phase_rad, std_rad, time_s=None, contrast=None, reference_
         basis = "given by the caller" if direction != "unknown" else "from the given sign" if sign_given else "assumed"
 
     cyclic_level = lv.cyclic_rad[level_ok]
-    if leak is not None and leak.applied and leak.leak_drift:
-        fixed = phase_curve(gray_in, phase_rad, std_rad, time_s, contrast, reference_gray, sign, direction=direction,
-                            amplitude=amplitude, scale_gray=scale_gray, scale_at_s=scale_at_s, leak_in_time=False)
-        if fixed.cyclic is not None and fixed.cyclic.applied:
-            common, here, there = np.intersect1d(levels, fixed.gray, return_indices=True)
+    if leak is not None and leak.applied and not extra_leak_terms:
+        other = phase_curve(gray_in, phase_rad, std_rad, time_s, contrast, reference_gray, sign, direction=direction,
+                            amplitude=amplitude, scale_gray=scale_gray, scale_at_s=scale_at_s, extra_leak_terms=1)
+        if other.cyclic is not None and other.cyclic.applied:
+            _, here, there = np.intersect1d(levels, other.gray, return_indices=True)
             diff = np.zeros(levels.size)
-            d = curve[here] - fixed.phase_rad[there]
+            d = curve[here] - other.phase_rad[there]
             diff[here] = d - np.median(d)
-            cyclic_level = np.hypot(cyclic_level, diff)
+            # nested fits: their difference's noise variance is that of the larger model less the smaller's
+            noise = np.zeros(levels.size)
+            noise[here] = other.budget.cyclic_rad[there] ** 2 - cyclic_level[here] ** 2
+            cyclic_level = np.sqrt(cyclic_level**2 + np.maximum(diff**2 - noise, 0.0))
     floor = leak.residual_rad if leak is not None else 0.0
     if disagreement is not None:
         keep = lv.keep & np.isin(gray, levels)

@@ -393,20 +393,27 @@ def test_analysis_fields_are_json_ready():
     assert set(doc["budget"]["components"]) == {"pixel_noise", "frame_scatter", "drift", "cyclic", "floor"}
 
 
-def test_a_turning_leak_is_followed_and_its_model_carried_in_the_budget():
+def test_a_turning_leak_is_followed_and_its_model_carried_in_the_budget(monkeypatch):
     """A 6 % leak turning by 0.5 rad over an ascending sweep (a cover-glass ghost as the panel warms), with piston
-    and 3 % scale drift: a fixed leak leaves 13..50 mrad RMS with a stated std that misses it (chi-square per level
-    10..260); the leak moving linearly in time leaves 2..10 mrad and the curve made again with a fixed leak sizes
-    the model's uncertainty (all levels within 2 sigma over 3 seeds). That size is conservative here (chi-square
-    per level 0.06..0.22): the two models' difference is taken whole, as for two estimators."""
-    for seed in range(3):
-        g, p, s, t, a = bench_sweep(truth=monotone_truth, leak=0.06, vibration=0.003, piston=1.0, scale=0.03,
-                                    scale_gray=150, seed=seed, leak_turn=0.5)
+    and 3 % scale drift, 4 seeds: a leak held fixed leaves 13..51 mrad RMS; moving linearly in time it leaves
+    2..10 mrad, and the curve made again with one more power of time sizes the model's uncertainty: chi-square
+    per level 0.15..1.4 on three seeds, 3.6 on the fourth (66 % within 2 sigma: the straight chord of a turning
+    leak is at its limit there; a 1 rad turn is beyond it)."""
+    import analysis.cyclic as cyclic
+
+    kw = dict(truth=monotone_truth, leak=0.06, vibration=0.003, piston=1.0, scale=0.03, scale_gray=150,
+              leak_turn=0.5)
+    rms, chi = [], []
+    for seed in range(4):
+        g, p, s, t, a = bench_sweep(seed=seed, **kw)
         moving = phase_curve(g, p, s, t, scale_gray=150, amplitude=a)
-        fixed = phase_curve(g, p, s, t, scale_gray=150, amplitude=a, leak_in_time=False)
-        rms_fixed, chi_fixed, _ = against_truth(fixed, monotone_truth)
-        rms, chi, within = against_truth(moving, monotone_truth)
-        assert moving.cyclic.leak_drift and not fixed.cyclic.leak_drift
-        assert chi_fixed > 5 and rms < 0.6 * rms_fixed and rms < 0.02
-        assert within >= 0.95 and 0.02 < chi < 2
-        assert np.median(moving.budget.cyclic_rad) > 3 * np.median(fixed.budget.cyclic_rad)
+        assert moving.cyclic.leak_drift
+        r, c, _ = against_truth(moving, monotone_truth)
+        rms.append(r)
+        chi.append(c)
+    monkeypatch.setattr(cyclic, "MAX_LEAK_TIME_DEGREE", 0)
+    for seed in range(4):
+        g, p, s, t, a = bench_sweep(seed=seed, **kw)
+        fixed = phase_curve(g, p, s, t, scale_gray=150, amplitude=a)
+        assert not fixed.cyclic.leak_drift and rms[seed] < 0.4 * against_truth(fixed, monotone_truth)[0]
+    assert max(rms) < 0.02 and 0.1 < np.median(chi) < 2 and max(chi) < 7
