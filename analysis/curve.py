@@ -674,7 +674,7 @@ def phase_curve(gray, phase_rad, std_rad, time_s=None, contrast=None, reference_
     variance the extra term adds) joins the cyclic component as a type-B model uncertainty (GUM 4.3): the motion trades against the curve's shape in a sweep in
     gray order (analysis.cyclic), and its error reaches every level through the drift references as well.
     """
-    gray_in = gray
+    given = dict(gray=gray, sign=sign)  # as the caller gave them, for the leak model's check
     gray = np.asarray(gray, dtype=int)
     phase = np.asarray(phase_rad, dtype=float)
     std = np.asarray(std_rad, dtype=float)
@@ -756,8 +756,9 @@ def phase_curve(gray, phase_rad, std_rad, time_s=None, contrast=None, reference_
 
     cyclic_level = lv.cyclic_rad[level_ok]
     if leak is not None and leak.applied and not extra_leak_terms:
-        other = phase_curve(gray_in, phase_rad, std_rad, time_s, contrast, reference_gray, sign, direction=direction,
-                            amplitude=amplitude, scale_gray=scale_gray, scale_at_s=scale_at_s, extra_leak_terms=1)
+        other = phase_curve(given["gray"], phase_rad, std_rad, time_s, contrast, reference_gray, given["sign"],
+                            direction=direction, amplitude=amplitude, scale_gray=scale_gray, scale_at_s=scale_at_s,
+                            extra_leak_terms=1)
         if other.cyclic is not None and other.cyclic.applied:
             _, here, there = np.intersect1d(levels, other.gray, return_indices=True)
             diff = np.zeros(levels.size)
