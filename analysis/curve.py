@@ -671,8 +671,9 @@ def phase_curve(gray, phase_rad, std_rad, time_s=None, contrast=None, reference_
 
     Where a leak correction is applied to timed frames, the whole curve is made again with one more power of time
     in the leak's motion, and each level's difference between the two (common piston removed, less the noise
-    variance the extra term adds) joins the cyclic component as a type-B model uncertainty (GUM 4.3): the motion trades against the curve's shape in a sweep in
-    gray order (analysis.cyclic), and its error reaches every level through the drift references as well.
+    variance the extra term adds) joins the cyclic component as a type-B model uncertainty (GUM 4.3): the motion
+    trades against the curve's shape in a sweep in gray order (analysis.cyclic), and its error reaches every level
+    through the drift references as well.
     """
     given = dict(gray=gray, sign=sign)  # as the caller gave them, for the leak model's check
     gray = np.asarray(gray, dtype=int)

@@ -230,7 +230,8 @@ def monotone_truth(g):
 
 
 def bench_sweep(truth=panel_curve, frames=4, noise=0.002, vibration=0.0, piston=0.0, scale=0.0, leak=0.0,
-                scale_gray=None, order="ascending", seed=0, reference_every=12, leak_turn=0.0):
+                scale_gray=None, order="ascending", seed=0, reference_every=12,
+                leak_turn=0.0):
     """Frames of a sweep as complex fringe amplitudes: gray, wrapped phase, stated std, time, amplitude.
 
     The fringe phase is -(1 + scale u) truth + piston u (u the sweep's fraction) plus vibration (rad per frame, not
