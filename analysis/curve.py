@@ -31,6 +31,7 @@ OUTLIER_SIGMAS = 5.0     # frames or levels this many robust standard deviations
 SMOOTH_KNOT_SPACING = 16  # gray levels between knots of the monotone smooth fit
 DIP_SIGMAS = 3.0         # a fall against the curve's direction this many combined standard errors deep is a dip
 OWN_SCATTER_P = 0.01     # a level whose frames scatter beyond the pooled spread at this level uses its own spread
+SCATTER_NEIGHBOURS = 8   # the frames' excess spread is pooled over this many measured levels either side
 SCALE_SIGMAS = 3.0       # a scale drift seen this many standard errors from zero (one reference gray) is warned of
 DIRECTIONS = {"rising": 1, "falling": -1}
 PHASE_CONVENTION = ("phase is the delay the panel adds to the reflected field (the field is multiplied by "
@@ -551,9 +552,11 @@ def _level_stats(gray, phase, std, time_s, contrast, cyclic) -> _Levels:
 def _frame_scatter(lv: _Levels) -> tuple[np.ndarray, np.ndarray, float, int, np.ndarray]:
     """Pixel-noise and frame-scatter standard errors (rad) of each level's mean, as type-A evaluations.
 
-    The frames' spread beyond their stated std (vibration, flicker) is pooled over all levels with two or more
-    frames (JCGM 100:2008, 4.2.4): four frames alone give a spread uncertain by a factor of two. A level whose own
-    spread exceeds the pooled one at the OWN_SCATTER_P level of an F test uses its own. Returns pixel, scatter,
+    The frames' spread beyond their stated std (vibration, flicker) is pooled over levels with two or more frames
+    (JCGM 100:2008, 4.2.4): four frames alone give a spread uncertain by a factor of two. Each level takes the pool
+    of its SCATTER_NEIGHBOURS neighbours either side, since the spread changes with gray (flicker follows the
+    slope of phase against drive voltage; vibration does not change). A level whose own spread exceeds the
+    all-level pool at the OWN_SCATTER_P level of an F test uses its own. Returns pixel, scatter, the all-level
     pooled excess per frame (rad), its degrees of freedom and the levels on their own spread.
     """
     multi = lv.n >= 2
@@ -570,7 +573,13 @@ def _frame_scatter(lv: _Levels) -> tuple[np.ndarray, np.ndarray, float, int, np.
         if np.array_equal(flagged, own):
             break
         own = flagged
-    frame_var = np.where(own, lv.own_var, lv.stated_var + excess)
+    pool = multi & ~own
+    dof_each = np.where(pool, lv.n - 1, 0).astype(float)
+    sum_each = np.where(pool, (lv.n - 1) * (np.nan_to_num(lv.own_var) - lv.stated_var), 0.0)
+    near = lambda v: np.convolve(v, np.ones(2 * SCATTER_NEIGHBOURS + 1))[SCATTER_NEIGHBOURS:][:v.size]  # noqa: E731
+    local_dof = near(dof_each)
+    local = np.where(local_dof > 0, near(sum_each) / np.maximum(local_dof, 1), excess)
+    frame_var = np.where(own, lv.own_var, lv.stated_var + np.maximum(local, 0.0))
     pixel = np.sqrt(lv.stated_var / lv.n)
     scatter = np.sqrt(np.maximum(frame_var - lv.stated_var, 0.0) / lv.n)
     return pixel, scatter, math.sqrt(excess), dof, own
