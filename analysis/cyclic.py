@@ -29,8 +29,9 @@ curve as a model uncertainty.
 
 The light itself changes in time too (laser power; the first order's efficiency as warming changes the grating's
 phase step): the amplitudes share a gain 1 + c_1 tau + ..., up to MAX_GAIN_TIME_DEGREE, each power kept as above.
-Unmodelled, the drift references' amplitude change (about 1 % over 5 K) pulls the leak along their phases, which
-here left 8 mrad RMS where the gain leaves 3.5 mrad.
+Unmodelled, the drift references' amplitude change pulls the leak along their phases: on the small bench with a
+0.5 % ghost and 5 K of warming (a common change of about 0.3 %, the turning ghost's on top), the curve was 8 mrad
+RMS off the truth without the gain and 3.3 mrad with it.
 
 The circle is told from a smooth amplitude change only when the phases cover most of the circle: with less than
 MIN_ARC_RAD the amplitude is held constant (the only radius a short arc pins down), the fit is reported but never
