@@ -298,8 +298,8 @@ def test_one_reference_gray_warns_of_a_scale_drift_the_levels_show():
 def test_frame_scatter_enters_the_budget():
     """0.05 rad of vibration, 4 frames per level, a stated std of 2 mrad per frame: the stated std alone is ~25x too
     small; the budget's pooled frame scatter brings the chi-square per level to 0.6..1.4 over 4 seeds (0.68..1.25
-    over 8 seeds, mean 0.98, pooled over neighbouring levels, the drift visits taking it too), and its pooled excess per frame
-    is 0.05 rad within 10 %."""
+    over 8 seeds, mean 0.98, pooled over neighbouring levels, the drift visits taking it too), and its pooled
+    excess per frame is 0.05 rad within 10 %."""
     for seed in range(4):
         g, p, s, t, a = bench_sweep(truth=monotone_truth, vibration=0.05, seed=seed)
         curve = phase_curve(g, p, s, t)
