@@ -304,6 +304,13 @@ def load_config(path: str | Path) -> Config:
         raw = tomllib.loads(path.read_text(encoding="utf-8"))
     except FileNotFoundError:
         raise ConfigError(f"{path}: no such config file") from None
+    except IsADirectoryError:
+        raise ConfigError(f"{path}: is a folder; expected a config file (TOML)") from None
+    except UnicodeDecodeError as err:
+        raise ConfigError(f"{path}: expected a TOML text file in UTF-8, found byte 0x{err.object[err.start]:02x} "
+                          f"at offset {err.start}") from None
+    except OSError as err:
+        raise ConfigError(f"{path}: cannot read the config file ({err.strerror or err})") from None
     except tomllib.TOMLDecodeError as err:
         raise ConfigError(f"{path}: not valid TOML ({err})") from None
     return config_from_dict(raw, source=str(path))
@@ -407,6 +414,8 @@ def _check(value, hint, meta, source, path):
             return value
         if not isinstance(value, list) or not value or not all(type(v) is int for v in value):
             fail("'all' or a non-empty list of integer gray levels")
+        if len(set(value)) < 2:
+            fail("'all' or a list of at least 2 different gray levels (a repeated level is measured once)")
         return tuple(value)
     if path == "sweep.second_reference_gray":
         if value in ("auto", "none") or type(value) is int and lo <= value <= hi:

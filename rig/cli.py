@@ -4,11 +4,12 @@ from __future__ import annotations
 
 import argparse
 import importlib
+import signal
 import sys
+import threading
 
-from analysis.config import ConfigError
 from rig import __version__
-from rig.errors import UsageError
+from rig.errors import EXIT_USAGE, run_command
 
 DESCRIPTION = """\
 Calibrate the phase response of a liquid-crystal-on-silicon modulator with split-screen fringes.
@@ -54,10 +55,21 @@ COMMAND_MODULES: tuple[str, ...] = tuple(f"rig.commands.{name}" for name in (
 ))
 
 
+class Parser(argparse.ArgumentParser):
+    """argparse with its errors on one line: the option and what was expected, then where help is."""
+
+    def error(self, message: str):
+        self.exit(EXIT_USAGE, f"{self.prog}: error: {message} (see {self.prog} --help)\n")
+
+
+DEBUG_HELP = "on an internal error, show the traceback as well"
+
+
 def build_parser() -> argparse.ArgumentParser:
-    parser = argparse.ArgumentParser(prog="fringecal", description=DESCRIPTION, epilog=EPILOG,
-                                     formatter_class=argparse.RawDescriptionHelpFormatter)
+    parser = Parser(prog="fringecal", description=DESCRIPTION, epilog=EPILOG,
+                    formatter_class=argparse.RawDescriptionHelpFormatter)
     parser.add_argument("--version", action="version", version=f"fringecal {__version__}")
+    parser.add_argument("--debug", action="store_true", help=DEBUG_HELP)
     sub = parser.add_subparsers(dest="command", metavar="COMMAND")
 
     def command(name, func, help_text, config: str | None = CONFIG_HELP):
@@ -73,20 +85,28 @@ def build_parser() -> argparse.ArgumentParser:
     return parser
 
 
+def _interrupt(signum, frame):
+    raise KeyboardInterrupt
+
+
 def main(argv: list[str] | None = None) -> int:
     parser = build_parser()
-    args = parser.parse_args(argv)
+    try:
+        args = parser.parse_args(argv)
+    except SystemExit as done:  # --help, --version, or a bad argument (one line, exit 2): returned, as commands'
+        return done.code
     if args.command is None:
         parser.print_help()
         return 0
+    # a scheduler's SIGTERM and a closed terminal's SIGHUP stop a command like Ctrl-C (a run: after the level)
+    previous = {}
+    if threading.current_thread() is threading.main_thread():
+        previous = {sig: signal.signal(sig, _interrupt) for sig in (signal.SIGTERM, signal.SIGHUP)}
     try:
-        return args.func(args)
-    except (ConfigError, UsageError) as err:
-        print(f"fringecal: error: {err}", file=sys.stderr)
-        return 2
-    except KeyboardInterrupt:
-        print("fringecal: interrupted", file=sys.stderr)
-        return 130
+        return run_command(args.func, args, args.debug)
+    finally:
+        for sig, handler in previous.items():
+            signal.signal(sig, handler)
 
 
 if __name__ == "__main__":

@@ -47,7 +47,7 @@ from dataclasses import dataclass
 import numpy as np
 from scipy import ndimage
 
-from analysis.config import Config
+from analysis.config import Config, ConfigError
 from analysis.patterns import grating_half, layout_of
 from simulators.optics import (CameraSampler, Propagator, beam_amplitude, beam_field, camera_points_um,
                                photons_per_joule)
@@ -131,6 +131,18 @@ class RegionBasis:
     lever_um: tuple[float, float]
 
 
+# The largest sensor and panel the simulator takes (pixels): several complex arrays of this size are held at once.
+MAX_SIMULATED_PX = 8 * 1024 * 1024
+
+
+def check_simulable(cfg: Config) -> None:
+    """Raise ConfigError, naming the key, for a bench too large to simulate in memory."""
+    for key, part in (("camera", cfg.camera), ("modulator", cfg.modulator)):
+        if part.width_px * part.height_px > MAX_SIMULATED_PX:
+            raise ConfigError(f"{cfg.source}: [{key}.width_px] expected at most {MAX_SIMULATED_PX // 2**20} Mpx "
+                              f"for a simulated {key}, got {part.width_px}x{part.height_px} px")
+
+
 class Bench:
     """The whole simulated bench for one config: panel, optics, disturbances, sensor and clock.
 
@@ -139,6 +151,7 @@ class Bench:
     """
 
     def __init__(self, cfg: Config, start_s: float = 0.0):
+        check_simulable(cfg)
         self.cfg = cfg
         sim, m, cam, geo = cfg.simulator, cfg.modulator, cfg.camera, cfg.geometry
         self.clock = SimClock(sim.timing.realtime, start_s)
@@ -153,7 +166,11 @@ class Bench:
         self.propagator = Propagator(m.width_px, m.height_px, m.pitch_um, self.wavelength_um, geo.distance_mm * 1e3)
         self.camera_x_um, self.camera_y_um = camera_points_um(cam.width_px, cam.height_px, cam.pitch_um,
                                                               geo.camera_offset_mm, geo.camera_roll_deg)
-        self.sampler = CameraSampler(self.propagator, self.camera_x_um, self.camera_y_um)
+        try:
+            self.sampler = CameraSampler(self.propagator, self.camera_x_um, self.camera_y_um)
+        except ValueError:
+            raise ConfigError(f"{cfg.source}: [geometry.camera_offset_mm] expected the camera inside the simulated "
+                              f"field of the panel's light, got {list(geo.camera_offset_mm)} mm") from None
         self.camera_shape = (cam.height_px, cam.width_px)
         self.thickness = self._thickness_map()
         self.band_weight = self._band_weight()

@@ -11,7 +11,8 @@ from conftest import small_config_file
 from rig.cli import main
 from rig.output.runs import read_journal
 from rig.run.steps import sweep_units
-from analysis.config import load_config
+from analysis.config import as_dict, load_config
+from configs import DEFAULT_SIM
 
 
 def read_csv(path):
@@ -28,14 +29,14 @@ def test_adaptive_run_on_the_demo_bench(tmp_path, capsys):
     """`run --sim --adaptive` on the demo bench: its summary states the table's error against the truth, manifest.csv
     holds at most a quarter of the frames a full sweep takes, and phase.csv has a row for every gray, the measured
     ones marked and each with a positive std. The demo bench's cover-glass ghost (0.5 %: a cyclic error of 70.5 mrad
-    peak, tests/test_cover_glass.py) and warming are not corrected by the sweep's finish yet, so the table error is
-    held only below that peak (achieved 59 mrad); the 10 mrad target is met on the benchmark's panels."""
+    peak, tests/test_cover_glass.py) is corrected from the frames' fringe amplitudes and the warming by the second
+    reference gray, so the table is within the issue's 10 mrad of the truth (achieved 4.9 mrad, 25 levels)."""
     out = tmp_path / "run"
     assert main(["run", "--sim", "--adaptive", "--out", str(out)]) == 0
     text = capsys.readouterr().out
     assert "table error against the simulator's truth" in text and "adaptive sweep:" in text
     summary = json.loads((out / "analysis.json").read_text())
-    assert summary["table_error_vs_truth_rad"] < 0.0705
+    assert summary["table_error_vs_truth_rad"] < 0.010
     cfg = load_config(out / "config.toml")
     full_frames = len(sweep_units(cfg)) * cfg.sweep.frames_per_level
     assert len(read_csv(out / "manifest.csv")) <= full_frames / 4
@@ -145,6 +146,22 @@ def test_temperature_tables_from_runs_at_25_and_35_c(tmp_path, capsys):
     assert "outside the measured range 25..35 C" in err
     assert json.loads((tmp_path / "lut45" / "lut.json").read_text())["extrapolated"]
 
+    # --clearing-c: the simulated E7 clears at 58 C (the runs' config, used by default). Told 90 C, the order-parameter
+    # law (S ~ (1 - T/Tc)^beta) loses less birefringence from 35 to 45 C, so its 45 C curve spans more and misses the
+    # truth by more than the default's.
+    assert main(["lut", "--temperature-c", "45", "--clearing-c", "90", *map(str, runs),
+                 "--out", str(tmp_path / "lut45-90")]) == 0
+    capsys.readouterr()
+    curves = {name: np.array([float(r["phase_rad"]) for r in read_csv(tmp_path / name / "curve.csv")])
+              for name in ("lut45", "lut45-90")}
+    model = json.loads((tmp_path / "lut45-90" / "lut.json").read_text())["temperature_model"]
+    assert model["clearing_c"] == 90.0
+    assert np.ptp(curves["lut45-90"]) > np.ptp(curves["lut45"]) + 0.01
+    truth45 = true_curve_at(runs[0], 45.0)
+    misses = {name: table_error_rad(json.loads((tmp_path / name / "lut.json").read_text())["gray"], c, turn * truth45)
+              for name, c in curves.items()}
+    assert misses["lut45-90"] > 2 * misses["lut45"]
+
 
 @pytest.mark.parametrize("args, fragment", [
     (["--temperature-c", "30", "nowhere", "nowhere2"], "RUN_DIR"),
@@ -192,3 +209,71 @@ def test_12_bit_panel_is_adaptive_by_default(tmp_path):
     assert np.loadtxt(out / "lut" / "lut.txt", dtype=int).size == 4096  # after its "#" header line
     assert (out / "report.html").is_file()
     assert summary["table_error_vs_truth_rad"] < 0.010
+
+
+class RecordingFolder:
+    """What adaptive_settings needs of a run folder: run.json updates, kept in ``info``."""
+
+    def __init__(self):
+        self.info = {}
+
+    def update(self, **fields):
+        self.info.update(fields)
+
+
+@pytest.mark.parametrize("command", ["run", "sweep", "map"])
+def test_full_tolerance_and_max_levels_set_the_sweep_of_each_command(command, small_cfg):
+    """Above 8 bits a sweep is adaptive unless --full; --tolerance-mrad and --max-levels set its stopping rule (the
+    defaults 10 mrad and analysis.adaptive.default_budget otherwise). That the rule stops a real sweep where it says
+    is shown end to end by test_camera_dying_mid_adaptive_sweep_resumes_to_the_same_levels."""
+    from analysis.adaptive import default_budget
+    from analysis.config import replace
+    from rig.cli import build_parser
+    from rig.run.adaptive import adaptive_settings
+
+    ten_bit = replace(small_cfg, **{"modulator.bit_depth": 10})
+
+    def settings(*options):
+        folder = RecordingFolder()
+        return adaptive_settings(build_parser().parse_args([command, "--sim", *options]), ten_bit, folder), folder.info
+
+    chosen, info = settings()
+    assert info["sweep_mode"] == "adaptive" and (chosen.tolerance_rad, chosen.budget) == (0.010, default_budget(10))
+    chosen, info = settings("--full")
+    assert chosen is None and info["sweep_mode"] == "full"
+    chosen, info = settings("--tolerance-mrad", "4", "--max-levels", "40")
+    assert (chosen.tolerance_rad, chosen.budget) == (pytest.approx(0.004), 40)
+    assert info["adaptive"] == {"tolerance_rad": pytest.approx(0.004), "budget": 40, "from": None}
+
+
+def nonideal_small_bench(folder, seed):
+    """The small bench with every non-ideality of the demo bench (configs/tweezers-1064.toml: its panel response,
+    camera noise, timing with the warming ramp, and cover-glass ghosts), drawn with simulator seed ``seed``."""
+    demo = as_dict(load_config(DEFAULT_SIM))["simulator"]
+    changes = {f"simulator.{part}": demo[part] for part in ("response", "noise", "timing", "cover_glass")}
+    return small_config_file(folder, f"nonideal-{seed}.toml", **changes, **{"simulator.seed": seed})
+
+
+def test_predicted_table_error_is_honest_with_every_non_ideality_over_seeds(tmp_path):
+    """The stopping rule on the simulator with every non-ideality on (ghosts, warming, vibration, flicker, crosstalk),
+    8 seeds at the default tolerance: the table's actual error against the truth is within twice its predicted
+    error (a 2 sigma bound on the RMS) in >= 90 % of the sweeps, and >= 90 % of the grays inside the table's window
+    lie within 2 sigma of the truth (piston removed). Not pessimistic either: the median actual/predicted ratio is
+    above 0.35 (achieved: 0.37 to 0.98, median about 0.7; 96 to 100 % of the grays within 2 sigma)."""
+    ratios, inside = [], []
+    for seed in range(1, 9):
+        out = tmp_path / f"s{seed}"
+        assert main(["run", "--sim", "--adaptive", "--config", str(nonideal_small_bench(tmp_path, seed)),
+                     "--out", str(out), "--no-frames"]) == 0
+        summary = json.loads((out / "analysis.json").read_text())
+        ratios.append(summary["table_error_vs_truth_rad"] / summary["adaptive"]["predicted_table_rms_rad"])
+        model = np.array([[float(r["phase_rad"]), float(r["phase_std_rad"])] for r in read_csv(out / "model.csv")])
+        truth = np.array([float(r["phase_rad"]) for r in read_csv(out / "truth.csv")])
+        low, high = summary["lut"]["window_gray"]
+        window = slice(min(low, high), max(low, high) + 1)
+        err = model[window, 0] - truth[window]
+        inside.append(np.mean(np.abs(err - err.mean()) <= 2 * model[window, 1]))
+    ratios = np.array(ratios)
+    assert np.mean(ratios <= 2.0) >= 0.9, ratios
+    assert np.mean(inside) >= 0.9, inside
+    assert np.median(ratios) > 0.35, ratios

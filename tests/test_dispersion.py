@@ -159,4 +159,4 @@ def test_compare_and_predict_refuse_bad_input(tmp_path, capsys):
                  "--out", str(tmp_path / "o")]) == 2
     assert "--from: expected PATH@NM" in capsys.readouterr().err
     assert main(["predict", "--from", "a", "b", "--wavelength-nm", "-5", "--out", str(tmp_path / "o")]) == 2
-    assert "--wavelength-nm: expected a wavelength > 0" in capsys.readouterr().err
+    assert "--wavelength-nm: expected a wavelength in nm from 100" in capsys.readouterr().err

@@ -234,7 +234,8 @@ def test_genicam_camera_killed_during_a_sweep_stops_the_run_with_exit_3_and_it_r
     monkeypatch.setattr(simulators.devices, "SimCamera", real_sim_camera)
     assert main(["sweep", "--resume", str(run)]) == 0
     after = read_journal(run / "journal.jsonl").checkpoints()
-    assert done < after and len(after) == len(sweep_units(load_config(cfg_path)))
+    scale_gray = json.loads((run / "run.json").read_text())["scale_gray"]
+    assert done < after and len(after) == len(sweep_units(load_config(cfg_path), scale_gray=scale_gray))
     assert json.loads((run / "run.json").read_text())["status"] == "complete"
 
 

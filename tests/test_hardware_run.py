@@ -18,35 +18,14 @@ from rig.run.steps import Grab, Settle, ShowSplit
 from simulators.bench import Bench
 from simulators.devices import SimCamera, SimScreen
 from simulators.instruments import MeterModel, PtyInstrument, ShutterModel
-from xdisplay import panel_display
+from xdisplay import panel_bench_toml, panel_display
 
 LEVELS = [0, 16, 32, 48, 64, 80, 96, 112, 128, 144, 160, 176, 192, 208, 224, 240, 255]
-WINDOW_TOML = """
-[modulator]
-width_px = 1920
-height_px = 1080
-display = "auto"
-[laser]
-power_mw = 0.25
-[camera]
-backend = "{backend}"
-device = "{device}"
-width_px = 256
-height_px = 200
-[geometry]
-distance_mm = 40.0
-camera_offset_mm = [-0.42, 0.0]
-[simulator.beam]
-radius_mm = 1.0
-[sweep]
-levels = {levels}
-reference_every = 8
-"""
 
 
 def bench_config(tmp_path, backend="sim", device="", extra="", name="bench.toml"):
     path = tmp_path / name
-    path.write_text(WINDOW_TOML.format(backend=backend, device=device, levels=LEVELS) + extra)
+    path.write_text(panel_bench_toml(backend, device, f"[sweep]\nlevels = {LEVELS}\nreference_every = 8\n") + extra)
     return path
 
 
@@ -89,7 +68,8 @@ def test_sweep_through_the_real_window_recovers_the_simulated_curve(window_run):
     info = json.loads((window_run / "run.json").read_text())
     assert info["status"] == "complete" and info["devices"]["camera_backend"] == "sim"
     phase = np.loadtxt(window_run / "phase.csv", delimiter=",", skiprows=1, usecols=0)
-    assert sorted(phase.astype(int)) == LEVELS
+    # the configured levels, and the second drift reference gray (about pi from the first) that the sweep visits
+    assert sorted(phase.astype(int)) == sorted({*LEVELS, info["scale_gray"]})
     assert offset_free_rms(window_run) < 0.03
 
 

@@ -91,7 +91,7 @@ def test_the_first_day_from_an_installed_package(installed, tmp_path):
     run = fringecal(installed, tmp_path, "run", "--sim", "--config", "small.toml", "--out", "first-run",
                     "--no-frames")
     assert run.returncode == 0, run.stderr
-    assert "[sweep] 33 gray levels + 4 drift references" in run.stdout
+    assert re.search(r"\[sweep\] 33 gray levels \+ 8 drift references \(4 visits at grays 0 and \d+\)", run.stdout)
 
     # 4. the table: the file the closing lines name loads, and it is the one lut.json describes
     load = next(line for line in run.stdout.splitlines() if line.startswith("next: load "))

@@ -138,10 +138,10 @@ def test_flicker_warns_when_the_expected_drive_is_beyond_the_frame_rate(tmp_path
 
 def test_align_shows_the_mirror_gray_and_scans_the_waveplate(tmp_path, capsys):
     cfg = small_config_file(tmp_path, **{"simulator.response.polarization_deg": 35.0, "pattern.grating_high": 80})
-    assert main(["align", "--sim", "--config", str(cfg), "--seconds", "0.3", "--mirror-gray", "77"]) == 0
+    assert main(["align", "--sim", "--terminal", "--config", str(cfg), "--seconds", "0.3", "--mirror-gray", "77"]) == 0
     plain = capsys.readouterr().out
     assert "align: mirror gray 77," in plain and "plate" not in plain
-    assert main(["align", "--sim", "--config", str(cfg), "--seconds", "0.3", "--scan-waveplate"]) == 0
+    assert main(["align", "--sim", "--terminal", "--config", str(cfg), "--seconds", "0.3", "--scan-waveplate"]) == 0
     scanned = capsys.readouterr().out
     assert "align: mirror gray 0," in scanned and "half-wave plate moved to" in scanned
 

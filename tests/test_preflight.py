@@ -117,29 +117,13 @@ def test_exposure_and_gain_are_read_back(tmp_path):
 def test_preflight_command_on_the_two_monitor_display_reports_every_item(tmp_path, capsys):
     """On CI's X server (primary 1280x1024 beside a 1920x1080 'panel'), with a replay camera and one serial part."""
     from rig.cli import main
-    from xdisplay import panel_display
+    from xdisplay import panel_bench_toml, panel_display
 
     panel = panel_display()
     shutter = PtyInstrument(ShutterModel())
     config = tmp_path / "bench.toml"
-    config.write_text(f"""
-[modulator]
-width_px = 1920
-height_px = 1080
-[camera]
-backend = "replay"
-device = "{replay_folder(tmp_path)}"
-width_px = 256
-height_px = 200
-[geometry]
-distance_mm = 40.0
-camera_offset_mm = [-0.42, 0.0]
-[simulator.beam]
-radius_mm = 1.0
-[accessories.shutter]
-port = "{shutter.port}"
-timeout_s = 0.5
-""")
+    config.write_text(panel_bench_toml("replay", str(replay_folder(tmp_path)),
+                                       f'[accessories.shutter]\nport = "{shutter.port}"\ntimeout_s = 0.5\n'))
     try:
         code = main(["preflight", "--config", str(config)])
         out = capsys.readouterr().out

@@ -5,25 +5,8 @@ import cv2
 import numpy as np
 
 from rig.cli import main
-from xdisplay import panel_display
+from xdisplay import panel_bench_toml, panel_display
 
-BENCH = """
-[modulator]
-width_px = 1920
-height_px = 1080
-[laser]
-power_mw = 0.25
-[camera]
-backend = "{backend}"
-device = "{device}"
-width_px = 256
-height_px = 200
-[geometry]
-distance_mm = 40.0
-camera_offset_mm = [-0.42, 0.0]
-[simulator.beam]
-radius_mm = 1.0
-"""
 
 
 def carrier(frame, period_px):
@@ -40,7 +23,7 @@ def test_preview_on_the_panel_window_writes_the_cameras_frame(tmp_path, capsys):
 
     panel_display()
     config = tmp_path / "bench.toml"
-    config.write_text(BENCH.format(backend="sim", device=""))
+    config.write_text(panel_bench_toml())
     frames = {}
     for gray in (0, 60):
         out, view = tmp_path / f"frame{gray}.png", tmp_path / f"view{gray}.png"
@@ -63,7 +46,7 @@ def test_preview_with_a_live_camera_asks_for_the_laser_safety_acknowledgement(tm
     image = (np.arange(256 * 200).reshape(200, 256) % 4000).astype(np.uint16)
     cv2.imwrite(str(frames / "g000.png"), image)
     config = tmp_path / "bench.toml"
-    config.write_text(BENCH.format(backend="replay", device=frames))
+    config.write_text(panel_bench_toml("replay", frames))
     out = tmp_path / "frame.png"
     assert main(["preview", "--config", str(config), "--out", str(out)]) == 2
     assert "--laser-safety-acknowledged" in capsys.readouterr().err and not out.exists()

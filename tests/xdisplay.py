@@ -11,6 +11,28 @@ import pytest
 PANEL_W, PANEL_H = 1920, 1080
 
 
+def panel_bench_toml(backend: str = "sim", device: str = "", extra: str = "") -> str:
+    """A config whose panel is the second monitor's window: a 256 x 200 px camera 40 mm away sees the band of a 1 mm
+    beam (0.25 mW); ``extra`` is appended TOML (sections of its own)."""
+    return f"""
+[modulator]
+width_px = {PANEL_W}
+height_px = {PANEL_H}
+[laser]
+power_mw = 0.25
+[camera]
+backend = "{backend}"
+device = "{device}"
+width_px = 256
+height_px = 200
+[geometry]
+distance_mm = 40.0
+camera_offset_mm = [-0.42, 0.0]
+[simulator.beam]
+radius_mm = 1.0
+{extra}"""
+
+
 def panel_display():
     """The non-primary 1920x1080 display; skip (or fail, in CI) when there is none."""
     from rig.errors import UsageError

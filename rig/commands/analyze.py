@@ -15,7 +15,8 @@ from analysis.curve import CurveError, phase_curve
 from analysis.fringe import estimate, lsq_model
 from analysis.imageio import DEFAULT_NAME_PATTERN, ImageFolderError, list_images, read_image
 from rig.errors import UsageError
-from rig.options import add_method_option, output_folder
+from rig.options import add_method_option, number, output_folder
+from rig.output.provenance import claim_output, source_of
 from rig.output.results import curve_summary, plot_curve, versions, write_json, write_phase_csv
 from rig.output.runs import read_json_file
 
@@ -42,10 +43,12 @@ def register(command) -> None:
                    help="regex with one group for the gray, matched against file names without suffix "
                         f"(default {DEFAULT_NAME_PATTERN!r}: g017.png, 017.tif)")
     p.add_argument("--bit-depth", type=int, default=8, metavar="BITS", help="panel gray-level bits (default 8)")
-    p.add_argument("--dark-adu", type=float, default=0.0, metavar="ADU",
+    p.add_argument("--dark-adu", type=number("a black level in ADU", 0), default=0.0, metavar="ADU",
                    help="camera black level, subtracted for the contrast figures (default 0)")
     p.add_argument("--smooth", action="store_true", help="also fit a smooth monotone curve")
     p.add_argument("--json", action="store_true", help="print the summary as JSON on stdout")
+    p.add_argument("--force", action="store_true",
+                   help="write into --out even if it holds a run, or results made from another source")
 
 
 def parse_roi(text: str) -> Band:
@@ -64,19 +67,31 @@ def cmd_analyze(args) -> int:
     out = output_folder(args.out)
     if not 1 <= args.bit_depth <= 16:
         raise UsageError(f"--bit-depth: expected 1 to 16 bits, got {args.bit_depth}")
+    _check_finished(Path(args.source))
     try:
         return _analyze(args, out)
     except (ImageFolderError, NoFringesError, CurveError, ValueError) as err:
         raise UsageError(str(err)) from None
 
 
+def _check_finished(source: Path) -> None:
+    """A run folder is analysed from its manifest.csv, which a run writes as it finishes."""
+    if (source / "run.json").is_file() and not (source / "manifest.csv").exists():
+        try:
+            status = json.loads((source / "run.json").read_text(encoding="utf-8")).get("status", "unknown")
+        except (ValueError, AttributeError):
+            status = "unknown"
+        raise UsageError(f"SOURCE: {source} is a run that has not finished (status {status}), so it has no "
+                         f"manifest.csv yet; finish it with: fringecal sweep --resume {source}")
+
+
 def _analyze(args, out: Path) -> int:
     records = list_images(args.source, args.name_pattern)
     gmax = 2**args.bit_depth - 1
-    bad = sorted({r.gray for r in records if not 0 <= r.gray <= gmax})
+    bad = [r for r in records if not 0 <= r.gray <= gmax]
     if bad:
-        raise UsageError(f"gray {bad[0]}: expected gray levels in [0, {gmax}] for a {args.bit_depth}-bit panel "
-                         "(see --bit-depth)")
+        raise UsageError(f"{bad[0].where}: gray {bad[0].gray}: expected gray levels in [0, {gmax}] for a "
+                         f"{args.bit_depth}-bit panel (see --bit-depth)")
     if not any(r.gray == args.reference_gray for r in records):
         raise UsageError(f"--reference-gray: no image at gray {args.reference_gray}")
     warnings: list[str] = []
@@ -87,6 +102,9 @@ def _analyze(args, out: Path) -> int:
     picks = [distinct[i] for i in np.unique(np.linspace(0, len(distinct) - 1, BAND_SAMPLES).round().astype(int))]
     samples = [first] + [_read_same(r.path, shape) for r in (next(r for r in records if r.gray == g) for g in picks)]
     full_scale = _full_scale(dtype, max(int(np.max(s)) for s in samples))
+    if args.dark_adu >= full_scale:
+        raise UsageError(f"--dark-adu: expected a black level below the images' full scale of {full_scale} ADU, "
+                         f"got {args.dark_adu:g}")
     if args.roi:
         roi = parse_roi(args.roi)
         roi.check_inside(shape, "--roi")
@@ -139,6 +157,7 @@ def _analyze(args, out: Path) -> int:
     if curve.drift is None:
         warnings.append("no drift correction: the reference gray was measured in fewer than two visits")
 
+    claim_output(out, source_of(args.source), args.force)  # once the input is known good: its errors come first
     out.mkdir(parents=True, exist_ok=True)
     write_phase_csv(out / "phase.csv", curve)
     summary = {"source": str(args.source), "images": len(records),

@@ -23,7 +23,8 @@ from analysis.dispersion import fit_panel, predict, scale
 from analysis.lut import build_lut
 from rig.atomic import write_atomic
 from rig.errors import UsageError
-from rig.options import output_folder
+from rig.options import WAVELENGTH, output_folder
+from rig.output.provenance import claim_output, prediction_source
 from rig.output.figures import prediction_figure, wavelengths_figure
 from rig.output.lut_files import metadata, write_lut_folder
 from rig.output.results import now_iso, write_json
@@ -59,7 +60,8 @@ def temperature_shifts(results) -> list[str]:
         temps = np.array([r.info["temperature_c"] for r in group])
         if len(group) < 2 or np.ptp(temps) < 0.1:
             continue
-        spans = np.array([float(r.curve.phase_rad[-1] - r.curve.phase_rad[0]) for r in group])
+        # a range is a span, whichever way the phase runs with gray
+        spans = np.array([abs(float(r.curve.phase_rad[-1] - r.curve.phase_rad[0])) for r in group])
         slope = float(np.polyfit(temps, spans, 1)[0])
         cold, warm = group[int(np.argmin(temps))], group[int(np.argmax(temps))]
         grays = np.intersect1d(cold.curve.gray, warm.curve.gray)
@@ -91,8 +93,8 @@ def cmd_compare(args) -> int:
           f"{'misfit mrad':>12}")
     for i, r in enumerate(results):
         c = r.curve
-        span = float(c.phase_rad[-1] - c.phase_rad[0])
-        reach = np.flatnonzero(c.phase_rad - c.phase_rad[0] >= 2 * np.pi)
+        span = abs(float(c.phase_rad[-1] - c.phase_rad[0]))  # a span, whichever way the phase runs
+        reach = np.flatnonzero(np.abs(c.phase_rad - c.phase_rad[0]) >= 2 * np.pi)
         first = str(int(c.gray[reach[0]])) if reach.size else "-"
         nm = f"{r.wavelength_nm:g}" if r.wavelength_nm else "?"
         if model is None:
@@ -131,9 +133,8 @@ def cmd_predict(args) -> int:
     """
     if len(args.sources) < 2:
         raise UsageError(f"--from: expected at least 2 calibrations of the panel, got {len(args.sources)}")
-    if not (math.isfinite(args.wavelength_nm) and args.wavelength_nm > 0):
-        raise UsageError(f"--wavelength-nm: expected a wavelength > 0 nm, got {args.wavelength_nm}")
     out = output_folder(args.out)
+    claim_output(out, prediction_source(args.sources, args.wavelength_nm), args.force)
     results = [read_result(spec, "--from") for spec in args.sources]
     model = _fit(results, "--from")
     pred = predict(model, args.wavelength_nm)
@@ -197,5 +198,7 @@ def register(command) -> None:
                 config=None)
     p.add_argument("--from", dest="sources", nargs="+", required=True, metavar="RUN",
                    help="two or more calibrations of the panel (run folders, or PATH@NM)")
-    p.add_argument("--wavelength-nm", type=float, required=True, metavar="NM", help="wavelength to predict")
+    p.add_argument("--wavelength-nm", type=WAVELENGTH, required=True, metavar="NM", help="wavelength to predict")
     p.add_argument("--out", required=True, metavar="DIR", help="folder for phase.csv, prediction.json/png and lut/")
+    p.add_argument("--force", action="store_true",
+                   help="write into --out even if it holds a run, or results made from another source")

@@ -9,7 +9,7 @@ import numpy as np
 from analysis.flicker import flicker_figures
 from rig.atomic import write_atomic
 from rig.errors import UsageError
-from rig.options import add_run_options
+from rig.options import add_run_options, load_bench_config, number
 from rig.output.figures import flicker_figure
 from rig.output.results import write_json
 from rig.run.session import Session, guarded, prepare_run
@@ -21,8 +21,9 @@ def register(command) -> None:
     p = command("flicker", cmd_flicker, "phase flicker of one gray level: rms, peak to peak, spectrum")
     add_run_options(p)
     p.add_argument("--gray", type=int, required=True, metavar="G", help="gray level of the mirror half to hold")
-    p.add_argument("--seconds", type=float, default=2.0, metavar="S", help="how long to record (default 2)")
-    p.add_argument("--expect-hz", type=float, metavar="F",
+    p.add_argument("--seconds", type=number("a recording time in s", 0, 3600, lo_open=True), default=2.0,
+                   metavar="S", help="how long to record (default 2)")
+    p.add_argument("--expect-hz", type=number("a drive frequency in Hz", 0, 1e6, lo_open=True), metavar="F",
                    help="the panel's drive frequency if known: warns when the frame rate cannot resolve it")
     p.add_argument("--json", action="store_true", help="print the figures as JSON on stdout")
 
@@ -30,11 +31,10 @@ def register(command) -> None:
 def cmd_flicker(args) -> int:
     """Hold the split pattern at one mirror gray, grab frames back to back at the camera's rate, extract every
     frame's fringe phase and report its rms and peak-to-peak flicker, its spectrum and dominant frequency."""
-    if args.seconds <= 0:
-        raise UsageError(f"--seconds: expected a duration above 0, got {args.seconds}")
+    gmax = load_bench_config(args).gray_max  # before the run folder is made: a bad gray leaves nothing behind
+    if not 0 <= args.gray <= gmax:
+        raise UsageError(f"--gray: expected a gray level in [0, {gmax}], got {args.gray}")
     cfg, folder = prepare_run(args, "flicker")
-    if not 0 <= args.gray <= cfg.gray_max:
-        raise UsageError(f"--gray: expected a gray level in [0, {cfg.gray_max}], got {args.gray}")
     low, high = cfg.pattern.grating_low, cfg.pattern.grating_high
 
     def body():
@@ -71,7 +71,7 @@ def cmd_flicker(args) -> int:
                 print(f"warning: {w}")
         return 0
 
-    return guarded(folder, body)
+    return guarded(folder, body, resume=None)
 
 
 def _warnings(fig, expect_hz) -> list[str]:

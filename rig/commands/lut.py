@@ -15,7 +15,8 @@ from analysis.lut import build_lut
 from analysis.thermal import TemperatureRun, predict_temperature
 from rig.atomic import write_atomic
 from rig.errors import UsageError
-from rig.options import output_folder
+from rig.options import check_wavelength_nm, output_folder
+from rig.output.provenance import claim_output, source_of
 from rig.output.lut_files import FILE_NAMES, metadata, write_lut_folder
 from rig.output.results import read_phase_csv
 from rig.output.runs import Result, bit_depth_of, read_result
@@ -33,6 +34,25 @@ def parse_range(text: str) -> float:
     return value
 
 
+MAX_REVERSAL_RAD, MAX_REVERSAL_STD = 1.0, 5.0
+
+
+def check_monotone(curve, source) -> None:
+    """Refuse (UsageError naming the row) a curve that goes back against its direction by more than
+    MAX_REVERSAL_RAD and MAX_REVERSAL_STD standard deviations: a glitch that a table would hide."""
+    phase, std = curve.phase_rad, curve.phase_std_rad
+    direction = np.sign(phase[-1] - phase[0]) or 1.0
+    back = -np.diff(phase) * direction
+    limit = np.maximum(MAX_REVERSAL_RAD, MAX_REVERSAL_STD * np.hypot(std[:-1], std[1:]))
+    bad = np.flatnonzero(back > limit)
+    if bad.size:
+        i = int(bad[0]) + 1
+        word = "rising" if direction > 0 else "falling"
+        raise UsageError(f"PHASE_CSV: {source} lines {i + 1}-{i + 2}: from gray {curve.gray[i - 1]} to gray "
+                         f"{curve.gray[i]} the phase goes back {back[i - 1]:.2f} rad against the curve's {word} "
+                         "direction; expected a monotone curve (remeasure those grays, or remove the bad row)")
+
+
 def cmd_lut(args) -> int:
     """Build a linearising lookup table from a measured phase curve and write it in five formats.
 
@@ -44,8 +64,8 @@ def cmd_lut(args) -> int:
     if not 1 <= bit_depth <= 16:
         raise UsageError(f"--bit-depth: expected 1 to 16 bits, got {bit_depth}")
     wavelength = args.wavelength_nm if args.wavelength_nm is not None else cfg.laser.wavelength_nm if cfg else None
-    if wavelength is not None and not (math.isfinite(wavelength) and wavelength > 0):
-        raise UsageError(f"--wavelength-nm: expected a wavelength > 0 nm, got {wavelength}")
+    if wavelength is not None:
+        check_wavelength_nm(wavelength, "--wavelength-nm")
     range_rad = None if args.range is None else parse_range(args.range)
     if args.levels is not None and args.levels < 2:
         raise UsageError(f"--levels: expected at least 2 table entries, got {args.levels}")
@@ -58,12 +78,14 @@ def cmd_lut(args) -> int:
     source = args.phase_csv[0]
 
     curve = read_phase_csv(source)
+    check_monotone(curve, source)
     try:
         lut = build_lut(curve.gray, curve.phase_rad, curve.phase_std_rad, bit_depth=bit_depth, levels=args.levels,
                         range_rad=range_rad)
     except ValueError as err:
         raise UsageError(f"PHASE_CSV: {source}: {err}") from None
 
+    claim_output(out, source_of(source), args.force)
     out.mkdir(exist_ok=True)
     created = datetime.datetime.now(datetime.timezone.utc).isoformat(timespec="seconds")
     write_lut_folder(out, lut, metadata(lut, str(source), created, wavelength))
@@ -159,3 +181,5 @@ def register(command) -> None:
     p.add_argument("--bit-depth", type=int, metavar="BITS", help="panel gray-level bits (default: from --config, else 8)")
     p.add_argument("--wavelength-nm", type=float, metavar="NM", help="wavelength recorded in lut.json "
                                                                      "(default: from --config, if given)")
+    p.add_argument("--force", action="store_true",
+                   help="write into --out even if it holds a run, or results made from another source")

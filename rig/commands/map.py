@@ -15,7 +15,7 @@ from analysis.panelmap import fit_surface, parse_grid, tiles
 from analysis.patterns import grating_half, layout_of
 from rig.atomic import write_atomic
 from rig.errors import UsageError
-from rig.options import add_run_options, add_sweep_options
+from rig.options import add_run_options, add_sweep_options, load_bench_config
 from rig.output.figures import map_figure
 from rig.output.lut_files import metadata, write_lut_folder
 from rig.output.results import now_iso, write_json, write_phase_csv
@@ -63,13 +63,14 @@ def cmd_map(args) -> int:
             rows, cols = parse_grid(args.grid)
         except ValueError as err:
             raise UsageError(str(err)) from None
+        checked = load_bench_config(args)  # before the run folder is made: a bad gray leaves nothing behind
+        background = checked.sweep.reference_gray if args.background_gray is None else args.background_gray
+        if not 0 <= background <= checked.gray_max:
+            raise UsageError(f"--background-gray: expected a gray level in [0, {checked.gray_max}], got {background}")
         cfg, folder = prepare_run(args, "map")
-        background = cfg.sweep.reference_gray if args.background_gray is None else args.background_gray
-        if not 0 <= background <= cfg.gray_max:
-            raise UsageError(f"--background-gray: expected a gray level in [0, {cfg.gray_max}], got {background}")
         folder.update(map={"rows": rows, "cols": cols, "background_gray": background, "tiles": {}})
         adaptive_settings(args, cfg, folder)  # recorded in run.json, read back below like a resumed map's
-    return guarded(folder, lambda: _measure(args, cfg, folder))
+    return guarded(folder, lambda: _measure(args, cfg, folder), resume="map")
 
 
 def _measure(args, cfg, folder: RunFolder) -> int:

@@ -8,7 +8,7 @@ import math
 
 from analysis.geometry import BAND_FILL, MIN_FRINGES, RECOMMENDED_SAMPLES, plan, setup_from_config
 from rig.errors import UsageError
-from rig.options import load_bench_config
+from rig.options import WAVELENGTH, load_bench_config
 
 TRADE_OFF = ("A shorter grating period diffracts at a larger angle, so the beams overlap sooner and the bench is "
              "shorter, but the fringes are finer on the sensor; a longer period needs more distance, and a longer "
@@ -87,7 +87,7 @@ def register(command) -> None:
     """Add ``fringecal plan`` to the parser."""
     p = command("plan", cmd_plan, "plan the split-screen geometry: overlap distance, fringe sampling, a distance",
                 config="bench config (TOML) the plan starts from (flags override it); default: the 1064 nm demo bench")
-    p.add_argument("--wavelength-nm", type=float, metavar="NM", help="laser wavelength (default: from the config)")
+    p.add_argument("--wavelength-nm", type=WAVELENGTH, metavar="NM", help="laser wavelength (default: from the config)")
     p.add_argument("--pitch-um", type=float, metavar="UM", help="panel pixel pitch")
     p.add_argument("--period-px", type=int, metavar="P", help="grating period in panel pixels")
     p.add_argument("--camera-pixel-um", type=float, metavar="UM", help="camera pixel pitch")

@@ -3,7 +3,7 @@ sweep, phase curve and lookup table."""
 
 from __future__ import annotations
 
-from rig.options import add_run_options, add_sweep_options
+from rig.options import WARMUP_MINUTES, add_run_options, add_sweep_options
 from rig.output.runs import read_result
 from rig.run.adaptive import adaptive_settings
 from rig.run.session import Session, guarded, prepare_run
@@ -18,7 +18,7 @@ def register(command) -> None:
     p.add_argument("--from", dest="from_run", metavar="RUN_DIR",
                    help="recalibrate from an earlier run of this panel (after the wavelength, temperature or angle "
                         "changed): a handful of levels and its curve's shape, rescaled")
-    p.add_argument("--warmup-minutes", type=float, default=0.0, metavar="M",
+    p.add_argument("--warmup-minutes", type=WARMUP_MINUTES, default=0.0, metavar="M",
                    help="before measuring, hold a pattern until the fringe phase is stable, at most M minutes")
 
 

@@ -9,7 +9,7 @@ from analysis.band import Band
 from analysis.carrier import Carrier
 from analysis.config import config_from_dict
 from rig.errors import UsageError
-from rig.options import add_run_options, add_sweep_options, load_bench_config
+from rig.options import WARMUP_MINUTES, add_run_options, add_sweep_options, load_bench_config
 from rig.output.runs import read_journal
 from rig.run.adaptive import adaptive_settings, resumed_settings
 from rig.run.folder import RunFolder
@@ -21,7 +21,7 @@ def register(command) -> None:
     p = command("sweep", cmd_sweep, "measure the phase of every gray level with drift references (resumable)")
     add_run_options(p)
     add_sweep_options(p)
-    p.add_argument("--warmup-minutes", type=float, default=0.0, metavar="M",
+    p.add_argument("--warmup-minutes", type=WARMUP_MINUTES, default=0.0, metavar="M",
                    help="before measuring, hold a pattern until the fringe phase is stable, at most M minutes")
     p.add_argument("--resume", metavar="RUN_DIR", help="continue an interrupted sweep in RUN_DIR")
     p.add_argument("--pair", metavar="LOW:HIGH|RUN_DIR",
@@ -87,7 +87,7 @@ def _resume(args) -> int:
                          "--out, --pair, --warmup-minutes, --adaptive, --full, --tolerance-mrad and --max-levels")
     folder = RunFolder.open(args.resume)
     cfg = config_from_dict(folder.info["config"], source=folder.info["config_source"])
-    if "band" not in folder.info or "pair" not in folder.info or "exposure_s" not in folder.info:
+    if not folder.sweep_began():
         raise UsageError(f"--resume: {folder.path} stopped before its sweep began; start a new run")
     if folder.info.get("status") == "complete":
         raise UsageError(f"--resume: {folder.path} is already complete")

@@ -27,4 +27,4 @@ def cmd_tune(args) -> int:
               "this run saved in run.json)")
         return 0
 
-    return guarded(folder, body)
+    return guarded(folder, body, resume=None)

@@ -11,7 +11,6 @@ cannot know when a frame was exposed it says so in ``exposure_timestamps`` and t
 
 from __future__ import annotations
 
-import importlib
 from concurrent.futures import ThreadPoolExecutor
 from concurrent.futures import TimeoutError as FutureTimeout
 from pathlib import Path
@@ -22,6 +21,7 @@ from analysis.frame import Frame
 from analysis.imageio import ImageFolderError, list_images, read_image
 from analysis.patterns import Rect
 from rig.devices.clock import MonotonicClock
+from rig.devices.plugins import load_plugin
 from rig.devices.protocols import Camera
 from rig.errors import UsageError
 
@@ -268,20 +268,8 @@ def load_backend(settings):
     ``settings`` is the config's ``[camera]`` section; the object must satisfy rig.devices.protocols.Camera and stamp its
     frames on ``time.monotonic`` (the rig's clock).
     """
-    module_name, _, class_name = settings.backend.partition(":")
-    try:
-        module = importlib.import_module(module_name)
-    except ImportError as err:
-        raise UsageError(f"camera.backend: cannot import module {module_name!r} ({err})") from None
-    cls = getattr(module, class_name, None)
-    if cls is None:
-        raise UsageError(f"camera.backend: module {module_name!r} has no class {class_name!r}")
-    camera = cls(settings)
-    if not isinstance(camera, Camera):
-        missing = [n for n in ("width_px", "height_px", "bit_depth", "exposure_s", "gain_db", "grab", "close")
-                   if not hasattr(camera, n)]
-        raise UsageError(f"camera.backend: {settings.backend} is not a camera (missing {', '.join(missing)}; see "
-                         "rig.devices.protocols.Camera)")
+    camera = load_plugin(settings, "camera.backend", Camera,
+                         ("width_px", "height_px", "bit_depth", "exposure_s", "gain_db", "grab", "close"), "camera")
     return camera
 
 

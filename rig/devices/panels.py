@@ -8,12 +8,12 @@ arrays of gray levels at the panel's full bit depth (uint8 up to 8 bits, uint16 
 
 from __future__ import annotations
 
-import importlib
 
 import numpy as np
 
 from analysis.patterns import check_panel_pattern, dtype_for
 from rig.errors import UsageError
+from rig.devices.plugins import load_plugin
 from rig.devices.protocols import Screen
 
 
@@ -54,19 +54,8 @@ class ScreenBase:
 def load_screen_backend(settings):
     """Instantiate the panel class named ``module:Class`` in ``modulator.backend`` as Class(settings), and check that
     it is a Screen of the configured size and bit depth."""
-    module_name, _, class_name = settings.backend.partition(":")
-    try:
-        module = importlib.import_module(module_name)
-    except ImportError as err:
-        raise UsageError(f"modulator.backend: cannot import module {module_name!r} ({err})") from None
-    cls = getattr(module, class_name, None)
-    if cls is None:
-        raise UsageError(f"modulator.backend: module {module_name!r} has no class {class_name!r}")
-    screen = cls(settings)
-    if not isinstance(screen, Screen):
-        missing = [n for n in ("width_px", "height_px", "bit_depth", "show", "close") if not hasattr(screen, n)]
-        raise UsageError(f"modulator.backend: {settings.backend} is not a screen (missing {', '.join(missing)}; see "
-                         "rig.devices.protocols.Screen)")
+    screen = load_plugin(settings, "modulator.backend", Screen, ("width_px", "height_px", "bit_depth", "show", "close"),
+                         "screen")
     got = (screen.width_px, screen.height_px, screen.bit_depth)
     if got != (settings.width_px, settings.height_px, settings.bit_depth):
         screen.close()

@@ -81,7 +81,7 @@ def write_lut_folder(folder: Path, lut: LookupTable, meta: dict) -> list[Path]:
                            "wavelength_nm": math.nan if wavelength is None else float(wavelength)})
     contents = {
         "lut.csv": csv_text.encode(),
-        "lut.json": (json.dumps({**meta, **table}, indent=1) + "\n").encode(),
+        "lut.json": (json.dumps({**meta, **table}, indent=1, allow_nan=False) + "\n").encode(),
         "lut.npy": npy.getvalue(),
         "lut.mat": mat.getvalue(),
         "lut.txt": (f"# {lut.header_line()}\n" + "".join(f"{g}\n" for g in gray)).encode(),

@@ -27,6 +27,7 @@ from rig.errors import UsageError
 from rig.output.figures import curve_figure, tuning_figure
 
 PHASE_HEADER = ("gray", "phase_rad", "phase_std_rad", "contrast", "n_frames")
+MAX_PHASE_RAD = 200.0  # no panel's phase comes near: some 30 waves
 SOURCE_COLUMN = "source"
 
 
@@ -85,7 +86,8 @@ def curve_summary(curve, survey_or_band, carrier, method: str, warnings: list[st
 
 
 def write_json(path: Path, data: dict) -> Path:
-    return write_atomic(path, (json.dumps(data, indent=2) + "\n").encode())
+    """``data`` as JSON, atomically; a NaN or infinity is refused (ValueError), never written."""
+    return write_atomic(path, (json.dumps(data, indent=2, allow_nan=False) + "\n").encode())
 
 
 def plot_curve(path: Path, curve, method: str, truth=None, model=None) -> Path:
@@ -153,9 +155,13 @@ def read_phase_csv(path: str | Path) -> MeasuredCurve:
     curve = MeasuredCurve(*(np.asarray(c, dtype=np.int64 if n in ("gray", "n_frames") else float)
                             for n, c in zip(PHASE_HEADER, columns)),
                           measured=np.asarray(measured, bool) if measured else None)
-    if np.any(curve.phase_std_rad < 0):
-        line = int(np.flatnonzero(curve.phase_std_rad < 0)[0]) + 2
-        raise UsageError(f"PHASE_CSV: {path} line {line}: column phase_std_rad expected a std >= 0")
+    for name, values, low, high, expected in (
+            ("phase_rad", curve.phase_rad, -MAX_PHASE_RAD, MAX_PHASE_RAD, f"a phase within ±{MAX_PHASE_RAD:g} rad"),
+            ("phase_std_rad", curve.phase_std_rad, 0.0, 2 * math.pi, "a std from 0 to 2π rad")):
+        bad = np.flatnonzero(~((values >= low) & (values <= high)))
+        if bad.size:
+            raise UsageError(f"PHASE_CSV: {path} line {int(bad[0]) + 2}: column {name} expected {expected}, "
+                             f"got {values[bad[0]]:g}")
     return curve
 
 

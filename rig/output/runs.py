@@ -14,6 +14,7 @@ from pathlib import Path
 
 from analysis.dispersion import Calibration
 from rig.errors import UsageError
+from rig.options import WAVELENGTH_NM
 from rig.output.results import MeasuredCurve, read_phase_csv
 
 
@@ -111,8 +112,9 @@ def read_result(spec: str, what: str) -> Result:
             wavelength = float(nm)
         except ValueError:
             wavelength = math.nan
-        if not (math.isfinite(wavelength) and wavelength > 0):
-            raise UsageError(f"{what}: expected PATH@NM with a wavelength > 0 nm, got {spec!r}")
+        low, high = WAVELENGTH_NM
+        if not (math.isfinite(wavelength) and low <= wavelength <= high):
+            raise UsageError(f"{what}: expected PATH@NM with a wavelength of {low:g} to {high:g} nm, got {spec!r}")
     path = Path(text)
     if path.is_dir():
         folder, csv_path = path, path / "phase.csv"
@@ -155,8 +157,14 @@ def panel_differences(results: list[Result]) -> list[str]:
 
 
 def read_journal(path: str | Path) -> JournalContents:
-    """Read every complete line; a last line cut short is returned apart, earlier bad lines are an error."""
-    lines = Path(path).read_text(encoding="utf-8").split("\n")
+    """Read every complete line; a last line cut short is returned apart, earlier bad lines are an error
+    (UsageError naming the journal, as for a journal that is missing or not text)."""
+    try:
+        lines = Path(path).read_text(encoding="utf-8").split("\n")
+    except FileNotFoundError:
+        raise UsageError(f"{path}: the run's journal is missing; without it the run cannot be finished") from None
+    except UnicodeDecodeError as err:
+        raise UsageError(f"{path}: the journal is damaged (not UTF-8 text at byte {err.start})") from None
     records, truncated = [], None
     for number, line in enumerate(lines, 1):
         if not line.strip():
@@ -166,6 +174,6 @@ def read_journal(path: str | Path) -> JournalContents:
         except json.JSONDecodeError:
             is_last = all(not rest.strip() for rest in lines[number:])
             if not is_last:
-                raise ValueError(f"{path}: line {number} is not a JSON record; the journal is damaged") from None
+                raise UsageError(f"{path}: line {number} is not a JSON record; the journal is damaged") from None
             truncated = line
     return JournalContents(tuple(records), truncated)

@@ -2,7 +2,10 @@
 
 Units are those of the full sweep (a level, a drift reference; each ends with a Checkpoint), keyed by gray
 (``level:g123``) so a level is measured once, with a reference first, after every ``sweep.reference_every`` levels
-and at the end. Each decision is journaled as a Checkpoint ``choice:K:g1,g2,...`` (empty: stop) before its levels are
+and at the end; with a second reference gray (run.json ``scale_gray``) each reference visit measures it too
+(``scale-reference:N``), as the full sweep does. Every fit, live or at the finish, makes the curve as the full sweep's
+finish does: the cyclic-error correction on the frames' complex fringe amplitudes, piston and scale drift referred
+to the middle of the frames so far. Each decision is journaled as a Checkpoint ``choice:K:g1,g2,...`` (empty: stop) before its levels are
 measured, and is computed only from the frames of completed units, in the form the journal holds them: a resumed sweep
 reads the choices already made and computes the next one from the same frames, so it measures what an uninterrupted
 sweep would.
@@ -51,11 +54,12 @@ class AdaptiveFit:
 
 
 def frame_row(record) -> tuple:
-    """(gray, phase, std, time, contrast) of a frame as the journal holds it (a journal dict or a FrameResult)."""
+    """(gray, phase, std, time, contrast, fringe amplitude) of a frame as the journal holds it (a journal dict or a
+    FrameResult); a missing contrast or amplitude is NaN."""
     get = record.get if isinstance(record, dict) else lambda key: getattr(record, key)
-    contrast = get("contrast")
+    contrast, amplitude = get("contrast"), get("amplitude_adu")
     return (int(get("gray")), get("phase_rad"), get("phase_std_rad"), round(get("t_s"), 9),
-            float("nan") if contrast is None else contrast)
+            float("nan") if contrast is None else contrast, float("nan") if amplitude is None else float(amplitude))
 
 
 def journal_rows(frame_records) -> list[tuple]:
@@ -63,18 +67,27 @@ def journal_rows(frame_records) -> list[tuple]:
     return [frame_row(r) for r in frame_records if r["purpose"] in ("level", "reference")]
 
 
-def fit_levels(rows: list[tuple], cfg, settings: AdaptiveSettings, direction: str = "unknown") -> AdaptiveFit:
+def fit_levels(rows: list[tuple], cfg, settings: AdaptiveSettings, direction: str = "unknown",
+               scale_gray: int | None = None) -> AdaptiveFit:
     """The curve of the measured frames and the model through its levels (pure: the same rows, the same fit).
-    ``direction`` is the sign probe's ("rising", "falling"; "unknown" makes the curve rise).
+    ``direction`` is the sign probe's ("rising", "falling"; "unknown" makes the curve rise); ``scale_gray`` the
+    second reference gray (None: piston drift only).
 
     Rows are put in time order first, so frames met live and frames read back from the journal give the same sums.
+    The curve is made as the full sweep's finish makes it (rig.run.stages.curve_from_frames): the cyclic-error fit
+    on the frames' complex fringe amplitudes (when every frame has one), and the scale drift, once the second gray
+    has frames, referred to the middle of the frames' times.
     """
     rows = sorted((r for r in rows if r[1] is not None), key=lambda r: (r[3], r[0], r[1]))
     if not rows:
         raise CurveError("adaptive sweep: no measured frame")
-    gray, phase, std, t_s, contrast = (np.array(c, dtype=float) for c in zip(*rows))
-    curve = phase_curve(gray.astype(int), phase, std, t_s, contrast, cfg.sweep.reference_gray, None, smooth=False,
-                        direction=direction)
+    gray, phase, std, t_s, contrast, amplitude = (np.array(c, dtype=float) for c in zip(*rows))
+    gray = gray.astype(int)
+    has_amplitude = bool(np.all(np.isfinite(amplitude) & (amplitude > 0)))
+    curve = phase_curve(gray, phase, std, t_s, contrast, cfg.sweep.reference_gray, None, smooth=False,
+                        direction=direction, amplitude=amplitude if has_amplitude else None,
+                        scale_gray=scale_gray if scale_gray is not None and np.any(gray == scale_gray) else None,
+                        scale_at_s=0.5 * (t_s.min() + t_s.max()))
     way = 1 if curve.phase_rad[-1] >= curve.phase_rad[0] else -1
     shape = None
     if settings.shape_rad is not None:
@@ -88,17 +101,20 @@ def fit_levels(rows: list[tuple], cfg, settings: AdaptiveSettings, direction: st
 
 
 def adaptive_sweep_steps(cfg, low: int, high: int, settings: AdaptiveSettings, done: frozenset[str] = frozenset(),
-                        rows=(), prefix: str = "", stage: str = "sweep", log=None, direction: str = "unknown"):
+                        rows=(), prefix: str = "", stage: str = "sweep", log=None, direction: str = "unknown",
+                        scale_gray: int | None = None):
     """Measure the adaptive sweep's units not in ``done``; ``rows`` are the frames of the done units (frame_row).
 
-    ``log(message)`` hears each decision; ``direction`` is the sign probe's (see fit_levels).
+    ``log(message)`` hears each decision; ``direction`` is the sign probe's and ``scale_gray`` the second reference
+    gray, visited with every reference (see fit_levels).
     """
     rows = list(rows)
     every, ref_gray = cfg.sweep.reference_every, cfg.sweep.reference_gray
     count = {"refs": 0, "since": 0, "levels": 0}
     levels_seen: set[int] = set()
     # at most: the budget's levels, their references, and a choice checkpoint per batch (the dashboard counts those)
-    most = settings.budget + settings.budget // max(every, 1) + 2 + settings.budget // adaptive.BATCH + 1
+    visits = (settings.budget // max(every, 1) + 2) * (1 if scale_gray is None else 2)
+    most = settings.budget + visits + settings.budget // adaptive.BATCH + 1
     yield Stage(stage, most, sum(k.startswith(prefix) for k in done))
 
     def measure(key, purpose, gray):
@@ -111,9 +127,11 @@ def adaptive_sweep_steps(cfg, low: int, high: int, settings: AdaptiveSettings, d
         yield Checkpoint(key)
 
     def reference():
-        key = f"{prefix}reference:{count['refs']}"
+        refs = count["refs"]
         count["refs"] += 1
-        yield from measure(key, "reference", ref_gray)
+        yield from measure(f"{prefix}reference:{refs}", "reference", ref_gray)
+        if scale_gray is not None:
+            yield from measure(f"{prefix}scale-reference:{refs}", "reference", scale_gray)
 
     def level(gray):
         count["levels"] += 1
@@ -135,7 +153,7 @@ def adaptive_sweep_steps(cfg, low: int, high: int, settings: AdaptiveSettings, d
             text = recorded[0].split(":", 2)[2]
             grays = [int(g) for g in text.split(",")] if text else []
         else:
-            fit = fit_levels(rows, cfg, settings, direction)
+            fit = fit_levels(rows, cfg, settings, direction, scale_gray)
             decision = adaptive.decide(fit.model, cfg.modulator.bit_depth, settings.tolerance_rad, settings.budget,
                                        count["levels"],
                                        check_gaps=fit.shape is None or not unwrapped_consistently(fit.shape),
@@ -225,10 +243,11 @@ class ModelCurve:
         return out
 
 
-def finish_model(rows: list[tuple], cfg, settings: AdaptiveSettings, direction: str = "unknown") -> ModelCurve:
+def finish_model(rows: list[tuple], cfg, settings: AdaptiveSettings, direction: str = "unknown",
+                 scale_gray: int | None = None) -> ModelCurve:
     """The model through every measured frame of an adaptive sweep (the closing reference included), running the
-    sign probe's ``direction``."""
-    fit = fit_levels(rows, cfg, settings, direction)
+    sign probe's ``direction``, with ``scale_gray`` the second reference gray (see fit_levels)."""
+    fit = fit_levels(rows, cfg, settings, direction, scale_gray)
     gray, phase, std = fit.model.curve()
     measured = np.isin(gray, fit.curve.gray)
     return ModelCurve(gray, phase, std, measured, fit, adaptive.predict_table(fit.model, cfg.modulator.bit_depth))

@@ -9,6 +9,7 @@ Contract:
 - Analysis runs in one worker thread and saving (frame crops, journal lines) in a second, each in submission order,
   so the loop waits only on hardware while they keep up (and on them, past MAX_BACKLOG frames behind, so memory stays
   bounded); a checkpoint is journaled after the frames of its unit.
+- A save that fails (a full disk) stops every later save, and its error reaches the loop at the next frame.
 - ``request_stop()`` (Ctrl-C) makes the loop stop before the next pattern change: ``Interrupted`` is raised once the
   worker has drained, leaving the run resumable.
 """
@@ -67,6 +68,7 @@ class Engine:
         self._saver = ThreadPoolExecutor(max_workers=1, thread_name_prefix="saving")
         self._pending: collections.deque[Future] = collections.deque()
         self._saving: collections.deque[Future] = collections.deque()
+        self._save_failed: BaseException | None = None
         self._patterns: dict[tuple, np.ndarray] = {}
         self._region: UseRegion = UseRegion(None)
         self._changed_at = -math.inf
@@ -234,7 +236,18 @@ class Engine:
         return self._queue(self._worker, self._pending, func, *args)
 
     def _save(self, func, *args) -> None:
-        self._queue(self._saver, self._saving, func, *args)
+        self._queue(self._saver, self._saving, self._save_unless_failed, func, *args)
+
+    def _save_unless_failed(self, func, *args) -> None:
+        """Run one save; after a save has failed (a full disk) run none: nothing after a lost frame is recorded, so
+        no checkpoint can claim a unit whose frames are not all on disk."""
+        if self._save_failed is not None:
+            raise self._save_failed
+        try:
+            func(*args)
+        except BaseException as err:
+            self._save_failed = err
+            raise
 
     def _analyse(self, frame, step: Grab, number: int, readings: dict):
         result = self.analyzer(frame.image, step.gray, step.purpose, frame.timestamp_s, frame.sequence)

@@ -27,13 +27,23 @@ class Journal:
                 self.cut = data[end:].decode("utf-8", "replace")
                 with open(self.path, "r+b") as fh:
                     fh.truncate(end)
-        self._fh = open(self.path, "a", encoding="utf-8")
+        self._fd = os.open(self.path, os.O_WRONLY | os.O_APPEND | os.O_CREAT, 0o666)
 
     def append(self, record: dict) -> None:
-        """Write one record as a line, flush and fsync it."""
-        self._fh.write(json.dumps(record, separators=(",", ":")) + "\n")
-        self._fh.flush()
-        os.fsync(self._fh.fileno())
+        """Write one record as a line and fsync it. If that fails (a full disk), what was written of the line is
+        cut off again and the OSError, naming the journal, raised: a line is in the journal whole or not at all."""
+        line = (json.dumps(record, separators=(",", ":"), allow_nan=False) + "\n").encode()
+        end = os.fstat(self._fd).st_size
+        try:
+            view = memoryview(line)
+            while view:
+                view = view[os.write(self._fd, view):]
+            os.fsync(self._fd)
+        except OSError as err:
+            os.ftruncate(self._fd, end)
+            raise OSError(err.errno, err.strerror, str(self.path)) from None
 
     def close(self) -> None:
-        self._fh.close()
+        if self._fd is not None:
+            os.close(self._fd)
+            self._fd = None

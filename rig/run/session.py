@@ -13,8 +13,8 @@ from rig.devices.accessories import Accessories, DriftWatch, open_accessories
 from rig.devices.cameras import open_camera
 from rig.devices.clock import MonotonicClock
 from rig.devices.screen import Tee, open_screen
-from rig.errors import DeviceFault, UsageError
-from rig.options import load_bench_config
+from rig.errors import EXIT_FAULT, EXIT_INTERRUPTED, STORAGE_FULL, DeviceFault, UsageError, describe_os_error
+from rig.options import load_bench_config, writable
 from rig.output.dashboard import EventFile, LiveDashboard, PlainProgress, RunState
 from rig.output.results import now_iso
 from rig.run.engine import Engine, Interrupted
@@ -24,7 +24,9 @@ from rig.run.measure import FrameAnalyzer
 from rig.run.steps import StepError
 from rig.safety import ensure_laser_safety
 
-EXIT_FAULT, EXIT_INTERRUPTED = 3, 130
+# The signals that stop a run after the current level: Ctrl-C, a scheduler or `timeout` (SIGTERM), a closed
+# terminal or SSH session (SIGHUP); a second one stops at once.
+STOP_SIGNALS = (signal.SIGINT, signal.SIGTERM, signal.SIGHUP)
 
 
 @dataclass
@@ -112,8 +114,10 @@ class Session:
                                       method=args.method)
         self.state = RunState(title)
         self.events = EventFile(args.events) if args.events else None
-        self.live = LiveDashboard(self.state) if sys.stdout.isatty() else None
-        listeners = [self.state] + ([PlainProgress(self.state, sys.stdout)] if self.live is None else [])
+        json_out = getattr(args, "json", False)  # stdout is for the JSON alone; progress goes to stderr
+        self.live = LiveDashboard(self.state) if sys.stdout.isatty() and not json_out else None
+        progress = sys.stderr if json_out else sys.stdout
+        listeners = [self.state] + ([PlainProgress(self.state, progress)] if self.live is None else [])
         listeners += [self.events] if self.events else []
         self.journal = Journal(folder.path / "journal.jsonl")
         if self.journal.cut:
@@ -122,7 +126,7 @@ class Session:
                              publish=lambda event: [listener(event) for listener in listeners],
                              on_frame=folder.on_frame, frames_before=frames_before,
                              session=folder.info.get("sessions", 1), **self._accessory_options(cfg, folder))
-        self._previous_handler = None
+        self._previous_handlers: dict = {}
 
     def _accessory_options(self, cfg, folder: RunFolder) -> dict:
         """Engine options for the accessories: frames to discard, and logged readings with drift warnings."""
@@ -141,13 +145,14 @@ class Session:
         self.engine.publish({"event": "log", "message": message})
 
     def __enter__(self):
-        def on_sigint(signum, frame):
+        def on_stop(signum, frame):
             if self.engine._stop:
                 raise KeyboardInterrupt
             self.engine.request_stop()
-            self.log("Ctrl-C: stopping after the current level (press again to stop at once)")
+            name = "Ctrl-C" if signum == signal.SIGINT else signal.Signals(signum).name
+            self.log(f"{name}: stopping after the current level (Ctrl-C again to stop at once)")
 
-        self._previous_handler = signal.signal(signal.SIGINT, on_sigint)
+        self._previous_handlers = {sig: signal.signal(sig, on_stop) for sig in STOP_SIGNALS}
         if self.live is not None:
             self.live.__enter__()
         return self
@@ -160,7 +165,8 @@ class Session:
             for kind, count in self.engine.faults.items():
                 faults[kind] = faults.get(kind, 0) + count
             self.folder.update(faults=faults, frames=self.engine.frames_grabbed)
-            signal.signal(signal.SIGINT, self._previous_handler or signal.SIG_DFL)
+            for sig, handler in self._previous_handlers.items():
+                signal.signal(sig, handler if handler is not None else signal.SIG_DFL)
             if self.live is not None:
                 self.live.__exit__(*exc)
             self.journal.close()
@@ -175,33 +181,69 @@ def prepare_run(args, what: str):
     ensure_laser_safety(cfg.laser.laser_class, cfg.laser.wavelength_nm,
                         sim=args.sim or cfg.camera.backend == "sim",
                         acknowledged=args.laser_safety_acknowledged or cfg.laser.safety_acknowledged)
+    if args.events:  # before the run folder is made: a bad path leaves nothing behind
+        writable(args.events, "--events")
     out = Path(args.out) if args.out else default_run_dir()
     if not args.out:
         out.parent.mkdir(exist_ok=True)
     devices = {"camera_backend": "sim" if args.sim else cfg.camera.backend}
     folder = RunFolder.create(out, cfg, command_line(), devices, save_frames=not args.no_frames)
-    print(f"{what}: run folder {folder.path}", flush=True)
+    print(f"{what}: run folder {folder.path}", flush=True, file=sys.stderr if getattr(args, "json", False) else None)
     return cfg, folder
 
 
-def guarded(folder: RunFolder, body) -> int:
-    """Run ``body``; turn stops and failures into a run.json status, a one-line message and an exit code."""
+def guarded(folder: RunFolder, body, resume: str | None = "sweep") -> int:
+    """Run ``body``; turn stops and failures into a run.json status, a one-line message and an exit code.
+
+    ``resume`` is the command whose ``--resume`` continues the run (sweep, map), None for a command that cannot be
+    resumed; a sweep's run can be resumed once its sweep began, before that it is started again.
+    """
     try:
         return body()
-    except Interrupted:
-        folder.update(status="interrupted", ended=now_iso())
-        print(f"fringecal: stopped; nothing measured is lost. Resume with: fringecal sweep --resume {folder.path}",
-              file=sys.stderr)
+    except (Interrupted, KeyboardInterrupt):
+        _set_status(folder, status="interrupted", ended=now_iso())
+        print(f"fringecal: stopped; nothing measured is lost. {_next_step(folder, resume)}", file=sys.stderr)
         return EXIT_INTERRUPTED
-    except KeyboardInterrupt:
-        folder.update(status="interrupted", ended=now_iso())
-        print(f"fringecal: interrupted; resume with: fringecal sweep --resume {folder.path}", file=sys.stderr)
-        return EXIT_INTERRUPTED
+    except OSError as err:
+        if err.errno in STORAGE_FULL:  # resumable once there is space again: nothing half-written was recorded
+            _set_status(folder, status="interrupted", ended=now_iso(), message=describe_os_error(err))
+            print(f"fringecal: storage: {describe_os_error(err)}; stopped, nothing recorded is lost. Free some space,"
+                  f" then: {_next_step(folder, resume)}", file=sys.stderr)
+        else:
+            _set_status(folder, status="failed", ended=now_iso(), message=describe_os_error(err))
+            print(f"fringecal: storage: {describe_os_error(err)}; everything measured so far is in {folder.path}",
+                  file=sys.stderr)
+        return EXIT_FAULT
     except (DeviceFault, StepError) as err:
         folder.update(status="failed", ended=now_iso(), message=str(err))
-        print(f"fringecal: error: {err}", file=sys.stderr)
-        print(f"fringecal: everything measured so far is in {folder.path}", file=sys.stderr)
+        print(f"fringecal: error: {err}; everything measured so far is in {folder.path}"
+              + (f". {_next_step(folder, resume)}" if _resumable(folder, resume) else ""), file=sys.stderr)
         return EXIT_FAULT
     except CurveError as err:
         folder.update(status="failed", ended=now_iso(), message=str(err))
         raise UsageError(str(err)) from None
+
+
+def _set_status(folder: RunFolder, **fields) -> None:
+    """Record how the run ended, if the storage still takes it (a full disk may not)."""
+    try:
+        folder.update(**fields)
+    except OSError:
+        pass
+
+
+def _resumable(folder: RunFolder, resume: str | None) -> bool:
+    return resume == "map" or resume == "sweep" and folder.sweep_began()
+
+
+def _next_step(folder: RunFolder, resume: str | None) -> str:
+    """What to do after a stop: resume the run, or (stopped before anything resumable) start it again."""
+    if _resumable(folder, resume):
+        return f"Resume with: fringecal {resume} --resume {folder.path}"
+    words = list(folder.info.get("command", ["fringecal"]))
+    for option in ("--out", "--resume"):
+        if option in words[:-1]:
+            i = words.index(option)
+            del words[i:i + 2]
+    before = "its sweep began" if resume == "sweep" else "it finished"
+    return f"It stopped before {before}, so there is nothing to resume; start again: {' '.join(words)}"

@@ -43,7 +43,7 @@ def take_dark(s: Session) -> float:
     finally:
         shutter.open()
     dark_image = np.mean(frames, axis=0)
-    dark = float(dark_image.mean())
+    dark = check_dark(s, float(dark_image.mean()))
     s.analyzer.dark_adu = dark
     s.folder.update(dark_adu=dark, dark_source=f"mean of {settings.dark_frames} frames with the shutter closed")
     s.log(f"dark level {dark:.1f} ADU with the shutter closed")
@@ -54,9 +54,22 @@ def estimate_dark(s: Session) -> float:
     """Dark stage without a shutter: the black level (ADU) from the darkest 0.1 % of pixels of one frame, the best
     estimate there is. Writes ``dark_adu`` and ``dark_source`` into run.json; returns the level (ADU)."""
     frame = s.devices.camera.grab(timeout_s=s.engine.timeout_s)
-    dark = float(np.percentile(frame.image, 0.1))
+    dark = check_dark(s, float(np.percentile(frame.image, 0.1)))
     s.analyzer.dark_adu = dark
     s.folder.update(dark_adu=dark, dark_source="0.1th percentile of a frame (no shutter configured)")
+    return dark
+
+
+MAX_DARK_FRACTION = 0.5  # a black level above this fraction of full scale means light floods the camera
+
+
+def check_dark(s: Session, dark: float) -> float:
+    """``dark`` (ADU) if it is a plausible black level; else StepError: the camera sees too much light."""
+    full = 2**s.devices.camera.bit_depth - 1
+    if not (np.isfinite(dark) and dark < MAX_DARK_FRACTION * full):
+        raise StepError(f"dark level: the darkest pixels are at {dark / full:.0%} of full scale at "
+                        f"{s.devices.camera.exposure_s * 1e3:.3g} ms exposure, expected below "
+                        f"{MAX_DARK_FRACTION:.0%}: light floods the camera; attenuate the beam")
     return dark
 
 
@@ -199,19 +212,20 @@ def sweep(s: Session, low: int, high: int, done=frozenset(), adaptive: AdaptiveS
     """Sweep stage: the fringe phase of every mirror gray at the grating pair ``low``/``high``, with drift references
     (at run.json's ``scale_gray`` too, when set); units whose checkpoint is in ``done`` are skipped (a resumed run).
     With ``adaptive`` settings only the levels the model asks for are measured (rig/run/adaptive.py), each choice
-    journaled, with references at one gray.
+    journaled, with the same references.
 
     Writes ``pair`` into run.json, and a journal line per frame and per finished unit (frame crops in frames/);
     returns nothing.
     """
-    s.folder.update(pair={**s.folder.info.get("pair", {}), "low": low, "high": high})
+    s.folder.update(pair={**s.folder.info.get("pair", {}), "low": low, "high": high}, sweep_began=True)
+    scale_gray = s.folder.info.get("scale_gray")
     if adaptive is None:
-        s.engine.run(sweep_steps(s.cfg, low, high, done, scale_gray=s.folder.info.get("scale_gray")))
+        s.engine.run(sweep_steps(s.cfg, low, high, done, scale_gray=scale_gray))
         return
-    s.folder.update(scale_gray=None)
     rows = journal_rows(read_journal(s.folder.path / "journal.jsonl").frames()) if done else []
     direction = (s.folder.info.get("direction") or {}).get("direction", "unknown")
-    s.engine.run(adaptive_sweep_steps(s.cfg, low, high, adaptive, done, rows, log=s.log, direction=direction))
+    s.engine.run(adaptive_sweep_steps(s.cfg, low, high, adaptive, done, rows, log=s.log, direction=direction,
+                                      scale_gray=scale_gray))
 
 
 FRAME_COLUMNS = ("frame", "purpose", "gray", "t_s", "phase_rad", "phase_std_rad", "amplitude_adu", "background_adu",
@@ -248,8 +262,8 @@ def finish(folder: RunFolder, cfg, method: str, bench=None, adaptive: AdaptiveSe
     summary = curve_summary(curve, band, Carrier(c["fx"], c["fy"], c["sharpness"]), method, warnings, "time_s")
     summary["sign_probe"] = probe or None
     summary["curve_at_s"] = mid_s
-    model = (finish_model(journal_rows(frames), cfg, adaptive, probe.get("direction", "unknown"))
-             if adaptive is not None else None)
+    model = (finish_model(journal_rows(frames), cfg, adaptive, probe.get("direction", "unknown"),
+                          folder.info.get("scale_gray")) if adaptive is not None else None)
     summary["sweep"] = sweep_figures(frames)
     truth = None
     if bench is not None:

@@ -144,6 +144,9 @@ class StepError(RuntimeError):
 
 
 # --- exposure ------------------------------------------------------------------------------------------------
+MIN_EXPOSURE_S, MAX_EXPOSURE_S = 1e-6, 10.0  # exposures a camera takes (s): camera.exposure_s's bounds
+
+
 def exposure_steps(cfg, exposure_s: float, low_gray: int, high_gray: int, target: float = 0.70, low: float = 0.60,
                   high: float = 0.80, tries: int = 10):
     """Bring the brightest pixels of the split pattern to ``low``..``high`` of full scale; return the exposure (s).
@@ -160,8 +163,11 @@ def exposure_steps(cfg, exposure_s: float, low_gray: int, high_gray: int, target
         reached = m.peak_fraction
         if low <= reached <= high and not m.saturated_px:
             return exposure_s
+        if (m.saturated_px or reached >= 0.999) and exposure_s <= MIN_EXPOSURE_S:
+            raise StepError(f"exposure: the camera saturates at its shortest exposure ({MIN_EXPOSURE_S * 1e6:g} us); "
+                            "attenuate the beam")
         exposure_s *= 0.5 if m.saturated_px or reached >= 0.999 else target / max(reached, 1e-3)
-        exposure_s = min(exposure_s, cfg.camera.exposure_s * 1e3)
+        exposure_s = max(min(exposure_s, cfg.camera.exposure_s * 1e3, MAX_EXPOSURE_S), MIN_EXPOSURE_S)
     raise StepError(f"exposure: no exposure brought the peak into {low:.0%}..{high:.0%} of full scale in {tries} tries"
                     f" (last {reached:.0%} at {exposure_s:.3g} s); check the light level and attenuation")
 
@@ -324,7 +330,9 @@ def sweep_steps(cfg, low: int, high: int, done: frozenset[str] = frozenset(), se
     references = sum(purpose == "reference" for _, purpose, _ in units)
     yield Stage(stage, len(units), sum(key in done for key, _, _ in units),
                 what=f"{len(units) - references} gray levels + {references} drift reference"
-                     + ("s" if references != 1 else ""))
+                     + ("s" if references != 1 else "")
+                     + (f" ({references // 2} visits at grays {cfg.sweep.reference_gray} and {scale_gray})"
+                        if scale_gray is not None and references else ""))
     for key, purpose, gray in units:
         if key in done:
             continue
