@@ -98,6 +98,9 @@ class Sweep:
     settle_s: float = spec(0.1, lo=0.0, hi=60.0, doc="wait after a pattern change")
     reference_gray: int = spec(0, lo=0, hi=4095, doc="gray re-measured for drift correction")
     reference_every: int = spec(16, lo=0, hi=100000, doc="levels between drift references (0: none)")
+    reference_frames: int = spec(6, lo=1, hi=1000,
+                                 doc="frames grabbed per drift-reference visit, back to back (a visit's noise "
+                                     "reaches every level through the drift model)")
     second_reference_gray: int | str = spec("auto", lo=0, hi=4095,
                                             doc="gray re-measured with every reference for the drift of the curve's "
                                                 "scale: 'auto' (the gray about pi from reference_gray), 'none', or "

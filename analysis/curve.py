@@ -31,6 +31,7 @@ OUTLIER_SIGMAS = 5.0     # frames or levels this many robust standard deviations
 SMOOTH_KNOT_SPACING = 16  # gray levels between knots of the monotone smooth fit
 DIP_SIGMAS = 3.0         # a fall against the curve's direction this many combined standard errors deep is a dip
 OWN_SCATTER_P = 0.01     # a level whose frames scatter beyond the pooled spread at this level uses its own spread
+SCATTER_NEIGHBOURS = 8   # the frames' excess spread is pooled over this many measured levels either side
 SCALE_SIGMAS = 3.0       # a scale drift seen this many standard errors from zero (one reference gray) is warned of
 DIRECTIONS = {"rising": 1, "falling": -1}
 PHASE_CONVENTION = ("phase is the delay the panel adds to the reflected field (the field is multiplied by "
@@ -551,9 +552,11 @@ def _level_stats(gray, phase, std, time_s, contrast, cyclic) -> _Levels:
 def _frame_scatter(lv: _Levels) -> tuple[np.ndarray, np.ndarray, float, int, np.ndarray]:
     """Pixel-noise and frame-scatter standard errors (rad) of each level's mean, as type-A evaluations.
 
-    The frames' spread beyond their stated std (vibration, flicker) is pooled over all levels with two or more
-    frames (JCGM 100:2008, 4.2.4): four frames alone give a spread uncertain by a factor of two. A level whose own
-    spread exceeds the pooled one at the OWN_SCATTER_P level of an F test uses its own. Returns pixel, scatter,
+    The frames' spread beyond their stated std (vibration, flicker) is pooled over levels with two or more frames
+    (JCGM 100:2008, 4.2.4): four frames alone give a spread uncertain by a factor of two. Each level takes the pool
+    of its SCATTER_NEIGHBOURS neighbours either side, since the spread changes with gray (flicker follows the
+    slope of phase against drive voltage; vibration does not change). A level whose own spread exceeds the
+    all-level pool at the OWN_SCATTER_P level of an F test uses its own. Returns pixel, scatter, the all-level
     pooled excess per frame (rad), its degrees of freedom and the levels on their own spread.
     """
     multi = lv.n >= 2
@@ -570,7 +573,13 @@ def _frame_scatter(lv: _Levels) -> tuple[np.ndarray, np.ndarray, float, int, np.
         if np.array_equal(flagged, own):
             break
         own = flagged
-    frame_var = np.where(own, lv.own_var, lv.stated_var + excess)
+    pool = multi & ~own
+    dof_each = np.where(pool, lv.n - 1, 0).astype(float)
+    sum_each = np.where(pool, (lv.n - 1) * (np.nan_to_num(lv.own_var) - lv.stated_var), 0.0)
+    near = lambda v: np.convolve(v, np.ones(2 * SCATTER_NEIGHBOURS + 1))[SCATTER_NEIGHBOURS:][:v.size]  # noqa: E731
+    local_dof = near(dof_each)
+    local = np.where(local_dof > 0, near(sum_each) / np.maximum(local_dof, 1), excess)
+    frame_var = np.where(own, lv.own_var, lv.stated_var + np.maximum(local, 0.0))
     pixel = np.sqrt(lv.stated_var / lv.n)
     scatter = np.sqrt(np.maximum(frame_var - lv.stated_var, 0.0) / lv.n)
     return pixel, scatter, math.sqrt(excess), dof, own
@@ -649,7 +658,7 @@ def _pooled_excess(gray, phase, std, order) -> float:
 def phase_curve(gray, phase_rad, std_rad, time_s=None, contrast=None, reference_gray: int = 0,
                 sign: int | None = None, smooth: bool = False, *, direction: str = "unknown",
                 direction_basis: str | None = None, amplitude=None, scale_gray: int | None = None,
-                check_phase_rad=None, scale_at_s: float | None = None) -> PhaseCurve:
+                check_phase_rad=None, scale_at_s: float | None = None, extra_leak_terms: int = 0) -> PhaseCurve:
     """Build the phase curve from per-frame results in acquisition order.
 
     ``time_s`` defaults to the acquisition index. ``direction`` ("rising", "falling") is how the panel's phase runs
@@ -666,8 +675,16 @@ def phase_curve(gray, phase_rad, std_rad, time_s=None, contrast=None, reference_
     listed. ``check_phase_rad``, the same frames' phases by a second, independent estimator, sizes a systematic
     floor from the two's disagreement (see estimator_floor_rad). ``std_rad`` of the result is the combined
     uncertainty of ``budget``. ``scale_at_s`` (s) is the time whose panel a scale-corrected curve describes
-    (default: the first reference visit).
+    (default: the first reference visit). ``extra_leak_terms`` gives the leak's motion in time that many more
+    powers than the data select (analysis.cyclic.fit_leak).
+
+    Where a leak correction is applied to timed frames, the whole curve is made again with one more power of time
+    in the leak's motion, and each level's difference between the two (common piston removed, less the noise
+    variance the extra term adds) joins the cyclic component as a type-B model uncertainty (GUM 4.3): the motion
+    trades against the curve's shape in a sweep in gray order (analysis.cyclic), and its error reaches every level
+    through the drift references as well.
     """
+    given = dict(gray=gray, sign=sign)  # as the caller gave them, for the leak model's check
     gray = np.asarray(gray, dtype=int)
     phase = np.asarray(phase_rad, dtype=float)
     std = np.asarray(std_rad, dtype=float)
@@ -701,7 +718,8 @@ def phase_curve(gray, phase_rad, std_rad, time_s=None, contrast=None, reference_
         if amp.shape != (n,) or not np.all(np.isfinite(amp) & (amp > 0)):
             raise CurveError("amplitude: expected one positive, finite fringe amplitude per frame")
         try:
-            leak = fit_leak(gray, amp * np.exp(1j * phase), std * amp, time_s=time_s)
+            leak = fit_leak(gray, amp * np.exp(1j * phase), std * amp, time_s=time_s,
+                            extra_leak_terms=extra_leak_terms)
         except ValueError as exc:
             warnings.append(f"cyclic error not fitted: {exc}")
         if leak is not None:
@@ -746,11 +764,25 @@ def phase_curve(gray, phase_rad, std_rad, time_s=None, contrast=None, reference_
     else:
         basis = "given by the caller" if direction != "unknown" else "from the given sign" if sign_given else "assumed"
 
+    cyclic_level = lv.cyclic_rad[level_ok]
+    if leak is not None and leak.applied and not extra_leak_terms:
+        other = phase_curve(given["gray"], phase_rad, std_rad, time_s, contrast, reference_gray, given["sign"],
+                            direction=direction, amplitude=amplitude, scale_gray=scale_gray, scale_at_s=scale_at_s,
+                            extra_leak_terms=1)
+        if other.cyclic is not None and other.cyclic.applied:
+            _, here, there = np.intersect1d(levels, other.gray, return_indices=True)
+            diff = np.zeros(levels.size)
+            d = curve[here] - other.phase_rad[there]
+            diff[here] = d - np.median(d)
+            # nested fits: their difference's noise variance is that of the larger model less the smaller's
+            noise = np.zeros(levels.size)
+            noise[here] = other.budget.cyclic_rad[there] ** 2 - cyclic_level[here] ** 2
+            cyclic_level = np.sqrt(cyclic_level**2 + np.maximum(diff**2 - noise, 0.0))
     floor = leak.residual_rad if leak is not None else 0.0
     if disagreement is not None:
         keep = lv.keep & np.isin(gray, levels)
         floor = math.hypot(floor, estimator_floor_rad(gray[keep], disagreement[keep]))
-    budget = UncertaintyBudget(levels, pixel[level_ok], scatter[level_ok], drift_std, lv.cyclic_rad[level_ok],
+    budget = UncertaintyBudget(levels, pixel[level_ok], scatter[level_ok], drift_std, cyclic_level,
                                np.full(levels.size, floor), excess, dof,
                                tuple(int(g) for g in lv.gray[own & level_ok]))
     errors = budget.combined_rad

@@ -230,12 +230,14 @@ def monotone_truth(g):
 
 
 def bench_sweep(truth=panel_curve, frames=4, noise=0.002, vibration=0.0, piston=0.0, scale=0.0, leak=0.0,
-                scale_gray=None, order="ascending", seed=0, reference_every=12):
+                scale_gray=None, order="ascending", seed=0, reference_every=12,
+                leak_turn=0.0):
     """Frames of a sweep as complex fringe amplitudes: gray, wrapped phase, stated std, time, amplitude.
 
     The fringe phase is -(1 + scale u) truth + piston u (u the sweep's fraction) plus vibration (rad per frame, not
     in the stated std); the amplitude 1000 (1 + 0.1 g / 255) plus a leak of relative size ``leak``; complex noise
-    of ``noise`` relative to 1000 per component. References at gray 0 (and ``scale_gray``) every few levels.
+    of ``noise`` relative to 1000 per component. References at gray 0 (and ``scale_gray``) every few levels. The
+    leak turns steadily by ``leak_turn`` rad over the sweep (a cover-glass ghost as the panel warms).
     """
     rng = np.random.default_rng(seed)
     levels = list(GRAYS) if order == "ascending" else list(rng.permutation(GRAYS))
@@ -249,7 +251,7 @@ def bench_sweep(truth=panel_curve, frames=4, noise=0.002, vibration=0.0, piston=
     t = 0.5 * np.arange(grays.size)
     u = t / t.max()
     fringe = -(1 + scale * u) * truth(grays) + 0.4 + piston * u + rng.normal(0, vibration, grays.size)
-    z = (1000 * (1 + 0.1 * grays / 255) * np.exp(1j * fringe) + leak * 1000 * np.exp(1j * rng.uniform(-3, 3))
+    z = (1000 * (1 + 0.1 * grays / 255) * np.exp(1j * fringe) + leak * 1000 * np.exp(1j * (rng.uniform(-3, 3) + leak_turn * u))
          + 1000 * noise * (rng.normal(0, 1, grays.size) + 1j * rng.normal(0, 1, grays.size)))
     return grays, np.angle(z), 1000 * noise / np.abs(z), t, np.abs(z)
 
@@ -295,9 +297,9 @@ def test_one_reference_gray_warns_of_a_scale_drift_the_levels_show():
 
 def test_frame_scatter_enters_the_budget():
     """0.05 rad of vibration, 4 frames per level, a stated std of 2 mrad per frame: the stated std alone is ~25x too
-    small; the budget's pooled frame scatter brings the chi-square per level to 0.6..1.4 over 4 seeds (0.67..1.26
-    over 8 seeds, mean 0.96, with the drift visits taking the pooled scatter too), and its pooled excess per frame
-    is 0.05 rad within 10 %."""
+    small; the budget's pooled frame scatter brings the chi-square per level to 0.6..1.4 over 4 seeds (0.68..1.25
+    over 8 seeds, mean 0.98, pooled over neighbouring levels, the drift visits taking it too), and its pooled
+    excess per frame is 0.05 rad within 10 %."""
     for seed in range(4):
         g, p, s, t, a = bench_sweep(truth=monotone_truth, vibration=0.05, seed=seed)
         curve = phase_curve(g, p, s, t)
@@ -390,3 +392,29 @@ def test_analysis_fields_are_json_ready():
     assert doc["cyclic"]["applied"] and doc["drift"]["scale_gray"] == 150
     assert len(doc["budget_per_level"]) == curve.gray.size
     assert set(doc["budget"]["components"]) == {"pixel_noise", "frame_scatter", "drift", "cyclic", "floor"}
+
+
+def test_a_turning_leak_is_followed_and_its_model_carried_in_the_budget(monkeypatch):
+    """A 6 % leak turning by 0.5 rad over an ascending sweep (a cover-glass ghost as the panel warms), with piston
+    and 3 % scale drift, 4 seeds: a leak held fixed leaves 13..51 mrad RMS; moving linearly in time it leaves
+    2..10 mrad, and the curve made again with one more power of time sizes the model's uncertainty: chi-square
+    per level 0.15..1.4 on three seeds, 3.6 on the fourth (66 % within 2 sigma: the straight chord of a turning
+    leak is at its limit there; a 1 rad turn is beyond it)."""
+    import analysis.cyclic as cyclic
+
+    kw = dict(truth=monotone_truth, leak=0.06, vibration=0.003, piston=1.0, scale=0.03, scale_gray=150,
+              leak_turn=0.5)
+    rms, chi = [], []
+    for seed in range(4):
+        g, p, s, t, a = bench_sweep(seed=seed, **kw)
+        moving = phase_curve(g, p, s, t, scale_gray=150, amplitude=a)
+        assert moving.cyclic.leak_drift
+        r, c, _ = against_truth(moving, monotone_truth)
+        rms.append(r)
+        chi.append(c)
+    monkeypatch.setattr(cyclic, "MAX_LEAK_TIME_DEGREE", 0)
+    for seed in range(4):
+        g, p, s, t, a = bench_sweep(seed=seed, **kw)
+        fixed = phase_curve(g, p, s, t, scale_gray=150, amplitude=a)
+        assert not fixed.cyclic.leak_drift and rms[seed] < 0.4 * against_truth(fixed, monotone_truth)[0]
+    assert max(rms) < 0.02 and 0.1 < np.median(chi) < 2 and max(chi) < 7

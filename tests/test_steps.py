@@ -14,7 +14,7 @@ def cfg_with(**sweep):
 
 
 def test_sweep_measures_every_level_once_with_references_every_k():
-    cfg = cfg_with(reference_every=16, frames_per_level=3)
+    cfg = cfg_with(reference_every=16, frames_per_level=3, reference_frames=7)
     steps = list(sweep_steps(cfg, 0, 80))
     grabs = [s for s in steps if isinstance(s, Grab)]
     levels = [g.gray for g in grabs if g.purpose == "level"]
@@ -22,7 +22,7 @@ def test_sweep_measures_every_level_once_with_references_every_k():
     refs = [i for i, g in enumerate(grabs) if g.purpose == "reference"]
     assert len(refs) == 1 + 16 and refs[0] == 0 and refs[-1] == len(grabs) - 1
     assert np.all(np.diff(refs) == 17)
-    assert all(g.frames == 3 and g.keep and not g.wait for g in grabs)
+    assert all(g.frames == (7 if g.purpose == "reference" else 3) and g.keep and not g.wait for g in grabs)
     # every unit: show, settle, grab, checkpoint — and every checkpoint key is unique
     assert len(steps) == 1 + 4 * len(grabs)
     keys = [s.key for s in steps if isinstance(s, Checkpoint)]

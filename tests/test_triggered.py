@@ -50,13 +50,15 @@ def test_triggered_sweep_drops_no_frame(tmp_path, trigger):
 
 
 def test_triggered_lower_bound_counts_exposures_not_frame_periods(small_cfg):
-    """Per unit: settle + frames x exposure when triggered, settle + frames x frame period when free running. With
-    the second drift reference gray (sweep.second_reference_gray "auto", the default) each reference visit is two
-    units."""
+    """Per unit: settle + frames x exposure when triggered, settle + frames x frame period when free running; a
+    drift reference grabs sweep.reference_frames. With the second drift reference gray (sweep.second_reference_gray
+    "auto", the default) each reference visit is two units."""
     assert small_cfg.sweep.second_reference_gray == "auto"
-    units = len(sweep_units(small_cfg, scale_gray=small_cfg.sweep.reference_gray))
-    assert units == len(sweep_units(small_cfg)) + sum(u[0].startswith("reference:") for u in sweep_units(small_cfg))
-    s, n, e = small_cfg.sweep.settle_s, small_cfg.sweep.frames_per_level, small_cfg.camera.exposure_s
+    units = sweep_units(small_cfg, scale_gray=1)
+    assert len(units) == len(sweep_units(small_cfg)) + sum(u[0].startswith("reference:") for u in units)
+    refs = sum(purpose == "reference" for _, purpose, _ in units)
+    s, e = small_cfg.sweep.settle_s, small_cfg.camera.exposure_s
+    frames = (len(units) - refs) * small_cfg.sweep.frames_per_level + refs * small_cfg.sweep.reference_frames
     triggered = replace(small_cfg, **{"camera.trigger": "software"})
-    assert run_seconds(triggered, 100.0) == pytest.approx(units * (s + n * e))
-    assert run_seconds(small_cfg, 100.0) == pytest.approx(units * (s + n * 0.01))
+    assert run_seconds(triggered, 100.0) == pytest.approx(len(units) * s + frames * e)
+    assert run_seconds(small_cfg, 100.0) == pytest.approx(len(units) * s + frames * 0.01)

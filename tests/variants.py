@@ -19,6 +19,7 @@ from rig.run.steps import run_seconds
 COUNT = 8                   # variants in the benchmark
 WARMING_K = 5.0             # panel warming during the sweep (issue 12)
 INNER_REFLECTANCE = 0.005   # cover glass/ITO/LC interface, intensity (issue 12: 0.1-1 %)
+FRAMES_PER_LEVEL = 4        # as the demo benches: frames scatter by vibration and flicker, as on a real table
 
 # strength ranges (uniform draws)
 CROSSTALK_PX = (0.5, 1.2)        # fringing-field smoothing sigma, about a pixel for 8 um LCOS (from memory)
@@ -51,6 +52,7 @@ def variant(index: int, base: Config | None = None) -> tuple[str, Config]:
     pol = u(POLARIZATION_DEG) * (1 if rng.random() < 0.5 else -1)
     changes = {
         "simulator.seed": 100 + index,
+        "sweep.frames_per_level": FRAMES_PER_LEVEL,
         "simulator.response.crosstalk_px": u(CROSSTALK_PX),
         "simulator.response.polarization_deg": pol,
         "simulator.response.thickness_variation": u(THICKNESS),

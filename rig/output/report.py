@@ -302,7 +302,9 @@ def _setup(info: dict) -> list[tuple[str, str]]:
     if sweep:
         levels = sweep["levels"] if isinstance(sweep["levels"], str) else f"{len(sweep['levels'])} levels"
         rows.append(("sweep", f"{levels}, {sweep['frames_per_level']} frames per level, settle {sweep['settle_s']:g} s,"
-                              f" reference gray {sweep['reference_gray']} every {sweep['reference_every']} levels"))
+                              f" reference gray {sweep['reference_gray']} every {sweep['reference_every']} levels"
+                              + (f" ({sweep['reference_frames']} frames a visit)"
+                                 if "reference_frames" in sweep else "")))
     if "exposure_s" in info:
         rows.append(("exposure", f"{1e3 * info['exposure_s']:.3f} ms"))
     for key, label in (("devices", "devices"), ("versions", "software")):

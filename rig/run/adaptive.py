@@ -21,7 +21,7 @@ from analysis import adaptive
 from analysis.curve import CurveError, phase_curve
 from analysis.recalibrate import ShapeCheck, check_shape, recalibration_levels, unwrapped_consistently
 from rig.errors import UsageError
-from rig.run.steps import Checkpoint, Grab, Settle, ShowSplit, Stage
+from rig.run.steps import Checkpoint, Grab, Settle, ShowSplit, Stage, frames_for
 
 DEFAULT_TOLERANCE_MRAD = 10.0
 EARLIER_CSV = "earlier.csv"  # the earlier curve a recalibration starts from, kept in the run folder
@@ -122,7 +122,7 @@ def adaptive_sweep_steps(cfg, low: int, high: int, settings: AdaptiveSettings, d
             return
         yield ShowSplit(gray, low, high)
         yield Settle(cfg.sweep.settle_s)
-        m = yield Grab(cfg.sweep.frames_per_level, purpose, gray, wait=True, keep=True, unit=key)
+        m = yield Grab(frames_for(cfg, purpose), purpose, gray, wait=True, keep=True, unit=key)
         rows.extend(frame_row(r) for r in m.results)
         yield Checkpoint(key)
 

@@ -317,6 +317,12 @@ def sweep_units(cfg, seed: int = 0, prefix: str = "", scale_gray: int | None = N
     return units
 
 
+def frames_for(cfg, purpose: str) -> int:
+    """Frames grabbed for a sweep unit: ``sweep.reference_frames`` for a drift reference (its frames follow each
+    other without a settle, so they are cheap, and its noise reaches every level), else ``frames_per_level``."""
+    return cfg.sweep.reference_frames if purpose == "reference" else cfg.sweep.frames_per_level
+
+
 def sweep_steps(cfg, low: int, high: int, done: frozenset[str] = frozenset(), seed: int = 0, prefix: str = "",
                stage: str = "sweep", scale_gray: int | None = None):
     """Measure every unit of the sweep not in ``done``; frames are analysed and journaled as they come."""
@@ -332,7 +338,7 @@ def sweep_steps(cfg, low: int, high: int, done: frozenset[str] = frozenset(), se
             continue
         yield ShowSplit(gray, low, high)
         yield Settle(cfg.sweep.settle_s)
-        yield Grab(cfg.sweep.frames_per_level, purpose, gray, keep=True, unit=key)
+        yield Grab(frames_for(cfg, purpose), purpose, gray, keep=True, unit=key)
         yield Checkpoint(key)
 
 
@@ -389,5 +395,5 @@ def run_seconds(cfg, frame_rate_hz: float) -> float:
         per_frame = max(1.0 / frame_rate_hz, per_frame)
     two = cfg.sweep.second_reference_gray != "none" and cfg.sweep.reference_every > 0
     units = sweep_units(cfg, scale_gray=cfg.sweep.reference_gray if two else None)  # any gray counts the same
-    return len(units) * (cfg.sweep.settle_s + cfg.sweep.frames_per_level * per_frame)
+    return sum(cfg.sweep.settle_s + frames_for(cfg, purpose) * per_frame for _, purpose, _ in units)
 
