@@ -95,3 +95,15 @@ def test_a_finished_sweep_says_what_the_table_spans_and_what_to_do_next(tmp_path
     assert words[0] == "fringecal"
     args = build_parser().parse_args(words[1:])
     assert args.command == "verify" and args.sim and Path(args.lut).is_dir() and Path(args.config).is_file()
+
+
+@pytest.mark.parametrize("value, std, text", [
+    (0.067412, 0.000036, "0.067412 +- 0.000036"),   # two significant digits of the std (GUM 7.2.6, from memory)
+    (0.067412, 0.0042, "0.0674 +- 0.0042"),
+    (58.47, 3.2, "58.5 +- 3.2"),
+    (-0.00004, 0.013, "0.000 +- 0.013"),            # no -0.000
+    (1.5, 0.0, "1.5 +- 0"),                         # a zero std shows as 0, not as a rounded-away value
+])
+def test_a_value_is_printed_to_the_digits_its_std_allows(value, std, text):
+    from rig.output.numbers import with_std
+    assert with_std(value, std) == text

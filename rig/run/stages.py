@@ -14,7 +14,7 @@ from analysis.adaptive import table_error_rad
 from analysis.lut import build_lut, monotone_cubic
 from analysis.sign import probe_direction, staircase_grays
 from rig.output.lut_files import metadata, write_lut_folder
-from rig.output.numbers import fixed
+from rig.output.numbers import fixed, with_std
 from rig.output.report import write_report
 from rig.output.results import curve_summary, now_iso, plot_curve, plot_tuning, write_json, write_phase_csv
 from rig.output.runs import read_journal
@@ -416,7 +416,7 @@ def correction_lines(summary: dict) -> list[str]:
         lines.append(f"drift removed: piston ({1e3 * d['span_rad']:.1f} mrad span){scale}")
     c = summary.get("cyclic")
     if c:
-        lines.append(f"cyclic error: leak |L|/a = {c['ratio']:.4f} +- {c['ratio_std']:.4f} "
+        lines.append(f"cyclic error: leak |L|/a = {with_std(c['ratio'], c['ratio_std'])} "
                      f"({1e3 * c['peak_error_rad']:.1f} mrad peak), correction {'applied' if c['applied'] else 'off'}")
     b = summary.get("budget")
     if b:
