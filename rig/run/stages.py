@@ -77,14 +77,13 @@ def auto_exposure(s: Session, low: int, high: int) -> float:
     """Exposure stage: the camera exposure (s) that brings the fringes' peak near 70 % of full scale at the grating
     pair ``low``/``high``. Writes ``exposure_s`` into run.json; returns the exposure (s). A camera whose images do
     not follow its exposure (a replay) keeps the configured one."""
-    if getattr(s.devices.camera, "fixed_images", False):
-        exposure = s.devices.camera.exposure_s
-        s.folder.update(exposure_s=exposure)
-        s.log(f"exposure {exposure * 1e3:.3f} ms kept: the camera's images do not follow its exposure")
-        return exposure
-    exposure = s.engine.run(exposure_steps(s.cfg, s.devices.camera.exposure_s, low, high))
+    camera, kept = s.devices.camera, ""
+    if getattr(camera, "fixed_images", False):
+        exposure, kept = camera.exposure_s, " kept: the camera's images do not follow its exposure"
+    else:
+        exposure = s.engine.run(exposure_steps(s.cfg, camera.exposure_s, low, high))
     s.folder.update(exposure_s=exposure)
-    s.log(f"exposure {exposure * 1e3:.3f} ms")
+    s.log(f"exposure {exposure * 1e3:.3f} ms{kept}")
     return exposure
 
 
