@@ -94,7 +94,13 @@ class Pattern:
 @dataclass(frozen=True)
 class Sweep:
     levels: str | tuple[int, ...] = spec("all", doc="'all', or a list of gray levels")
-    frames_per_level: int = spec(2, lo=1, hi=1000, doc="frames grabbed per gray level")
+    frames_per_level: int | str = spec(2, lo=1, hi=1000,
+                                       doc="frames grabbed per gray level, or 'auto': as many as bring a level's "
+                                           "standard error to target_std_mrad (2 to 16), from the frames' scatter "
+                                           "measured just before the sweep (drift-reference visits then take at "
+                                           "least as many)")
+    target_std_mrad: float = spec(2.0, lo=0.05, hi=1000.0,
+                                  doc="standard error per level that frames_per_level 'auto' aims for")
     settle_s: float = spec(0.1, lo=0.0, hi=60.0, doc="wait after a pattern change")
     reference_gray: int = spec(0, lo=0, hi=4095, doc="gray re-measured for drift correction")
     reference_every: int = spec(16, lo=0, hi=100000, doc="levels between drift references (0: none)")
@@ -417,6 +423,10 @@ def _check(value, hint, meta, source, path):
         if len(set(value)) < 2:
             fail("'all' or a list of at least 2 different gray levels (a repeated level is measured once)")
         return tuple(value)
+    if path == "sweep.frames_per_level":
+        if value == "auto" or type(value) is int and lo <= value <= hi:
+            return value
+        fail(f"'auto' or an integer in [{lo}, {hi}]")
     if path == "sweep.second_reference_gray":
         if value in ("auto", "none") or type(value) is int and lo <= value <= hi:
             return value

@@ -33,6 +33,8 @@ DIP_SIGMAS = 3.0         # a fall against the curve's direction this many combin
 OWN_SCATTER_P = 0.01     # a level whose frames scatter beyond the pooled spread at this level uses its own spread
 SCATTER_NEIGHBOURS = 8   # the frames' excess spread is pooled over this many measured levels either side
 SCALE_SIGMAS = 3.0       # a scale drift seen this many standard errors from zero (one reference gray) is warned of
+ROUGHNESS_HALF_WINDOW = 6  # levels either side of a level whose cubic predicts it, for the levels' excess scatter
+ROUGHNESS_MIN_LEVELS = 24  # levels a curve needs before its roughness is judged (sparse curves bend between levels)
 DIRECTIONS = {"rising": 1, "falling": -1}
 PHASE_CONVENTION = ("phase is the delay the panel adds to the reflected field (the field is multiplied by "
                     "exp(+i phi(g)), waves written exp(i(k.r - w t))), relative to the reference gray")
@@ -601,6 +603,39 @@ def estimator_floor_rad(gray, difference_rad) -> float:
     return math.sqrt(max(excess, 0.0))
 
 
+def roughness_excess_rad(gray, phase_rad, std_rad) -> float:
+    """Standard deviation (rad) of errors the levels share no frame with, from the curve's roughness (type A).
+
+    A panel's curve is smooth in gray, so each level, left out, is predicted by a weighted cubic through its
+    ROUGHNESS_HALF_WINDOW neighbours either side; with honest stds the residuals r_i have variance v_i (the
+    level's and the prediction's). Errors that are constant over a level's frames but change from level to level
+    (a drift the references miss, slow vibration, flicker beating with the frame clock) make them larger: solving
+    mean(r_i^2 - v_i) = s^2 mean(1 + q_i), q_i the prediction weights' squared sum, for the common excess s (the
+    Birge ratio's remedy, applied to one variance component). Zero unless the residuals' chi-square exceeds its
+    expectation by three standard deviations, or the curve has fewer than ROUGHNESS_MIN_LEVELS levels.
+    """
+    g, phi, sig = (np.asarray(v, dtype=float) for v in (gray, phase_rad, std_rad))
+    n = g.size
+    if n < ROUGHNESS_MIN_LEVELS:
+        return 0.0
+    h = ROUGHNESS_HALF_WINDOW
+    r2, v, q = np.empty(n), np.empty(n), np.empty(n)
+    for i in range(n):
+        lo, hi = max(0, min(i - h, n - 2 * h - 1)), min(n, max(i + h + 1, 2 * h + 1))
+        idx = np.r_[lo:i, i + 1:hi]
+        x = (g[idx] - g[i]) / max(float(np.ptp(g[idx])), 1.0)
+        design = np.vander(x, 4) / sig[idx, None]
+        pinv = np.linalg.pinv(design)
+        weights = pinv[-1] / sig[idx]  # the cubic's value at x = 0 as weights on the neighbours' phases
+        r2[i] = (phi[i] - weights @ phi[idx]) ** 2
+        v[i] = sig[i] ** 2 + float(np.sum(weights**2 * sig[idx] ** 2))
+        q[i] = float(np.sum(weights**2))
+    chi2 = float(np.sum(r2 / v))
+    if chi2 <= n + 3 * math.sqrt(2 * n):
+        return 0.0
+    return math.sqrt(max(float(np.mean(r2 - v)), 0.0) / float(np.mean(1 + q)))
+
+
 def _remove_drift(gray, phase, std, time_s, contrast, cyclic, reference_gray, scale_gray, warnings, scale_at_s=None):
     """Fit the drift model to the reference visits and return it (or None) with the frames' corrected phases.
 
@@ -653,6 +688,30 @@ def _pooled_excess(gray, phase, std, order) -> float:
         num += float(np.sum(dev**2) - (b - a - 1) * np.mean(e[a:b] ** 2))
         dof += b - a - 1
     return max(num / dof, 0.0) if dof else 0.0
+
+
+def frames_for_target(group, phase_rad, std_rad, target_rad: float, fewest: int = 2, most: int = 16
+                      ) -> tuple[int, float, float]:
+    """Frames per level that bring a level mean's standard error to ``target_rad``, from runs of back-to-back frames.
+
+    ``group`` labels the runs (frames of one run share a pattern). The frames' variance about their run's mean,
+    pooled (JCGM 100:2008, 4.2.4), less their stated pixel-noise variance, is the scatter that averaging more
+    frames beats down (vibration, flicker); a level of n frames then has the standard error
+    sqrt((pixel^2 + scatter^2) / n). Returns (frames, clamped to [fewest, most]; per-frame scatter beyond the
+    pixel noise, rad; per-frame pixel noise, rad).
+    """
+    group = np.asarray(group)
+    phase, std = np.asarray(phase_rad, float), np.asarray(std_rad, float)
+    if not (group.size == phase.size == std.size) or not np.all(np.isfinite(phase) & np.isfinite(std)):
+        raise CurveError("frames: expected one finite phase and std per frame of the scatter probe")
+    if not target_rad > 0:
+        raise CurveError(f"target: expected a positive standard error, got {target_rad!r}")
+    if not any(np.sum(group == g) >= 2 for g in np.unique(group)):
+        raise CurveError("frames: the scatter probe needs a run of two or more frames of one pattern")
+    scatter_var = _pooled_excess(group, phase, std, np.arange(group.size))
+    pixel_var = float(np.mean(std**2))
+    frames = math.ceil((pixel_var + scatter_var) / target_rad**2 - 1e-9)
+    return min(max(frames, fewest), most), math.sqrt(scatter_var), math.sqrt(pixel_var)
 
 
 def phase_curve(gray, phase_rad, std_rad, time_s=None, contrast=None, reference_gray: int = 0,
@@ -782,6 +841,8 @@ def phase_curve(gray, phase_rad, std_rad, time_s=None, contrast=None, reference_
     if disagreement is not None:
         keep = lv.keep & np.isin(gray, levels)
         floor = math.hypot(floor, estimator_floor_rad(gray[keep], disagreement[keep]))
+    type_a_level = np.sqrt(pixel[level_ok] ** 2 + scatter[level_ok] ** 2 + drift_std**2 + cyclic_level**2)
+    floor = math.hypot(floor, roughness_excess_rad(levels, curve, np.sqrt(type_a_level**2 + floor**2)))
     budget = UncertaintyBudget(levels, pixel[level_ok], scatter[level_ok], drift_std, cyclic_level,
                                np.full(levels.size, floor), excess, dof,
                                tuple(int(g) for g in lv.gray[own & level_ok]))
@@ -800,6 +861,30 @@ def phase_curve(gray, phase_rad, std_rad, time_s=None, contrast=None, reference_
                       drift, tuple(int(i) for i in np.flatnonzero(~lv.keep)), rejected_grays, fitted,
                       summarize(levels, curve, errors, fitted, run, dips), name, basis, budget, leak,
                       tuple(warnings))
+
+
+def sweep_curve(gray, phase_rad, std_rad, time_s, contrast=None, amplitude=None, reference_gray: int = 0, *,
+                direction: str = "unknown", direction_basis: str | None = None, scale_gray: int | None = None,
+                smooth: bool = False) -> tuple[PhaseCurve, float, bool]:
+    """The curve of a sweep's frames (any order) as every sweep makes it, and the time (s) it refers to.
+
+    The rules a full and an adaptive sweep share: frames in time order; the cyclic-error fit only when every frame
+    has a positive fringe ``amplitude``; the scale drift only once ``scale_gray`` has frames; the curve referred to
+    the middle of the frames' times. Returns the curve, that time, and whether the amplitudes were used.
+    """
+    t = np.asarray(time_s, dtype=float)
+    order = np.argsort(t, kind="stable")
+    take = lambda v: None if v is None else np.asarray(v, dtype=float)[order]  # noqa: E731
+    gray = np.asarray(gray, dtype=int)[order]
+    amp = take(amplitude)
+    used = amp is not None and amp.size > 0 and bool(np.all(np.isfinite(amp) & (amp > 0)))
+    mid_s = 0.5 * (float(t.min()) + float(t.max())) if t.size else 0.0
+    curve = phase_curve(gray, take(phase_rad), take(std_rad), t[order], take(contrast), reference_gray, None,
+                        smooth=smooth, direction=direction, direction_basis=direction_basis,
+                        amplitude=amp if used else None,
+                        scale_gray=scale_gray if scale_gray is not None and np.any(gray == scale_gray) else None,
+                        scale_at_s=mid_s)
+    return curve, mid_s, used
 
 
 def _level_outliers(levels: np.ndarray, phase: np.ndarray, std: np.ndarray, half_window: int = 3) -> np.ndarray:

@@ -53,6 +53,7 @@ AMPLITUDE_TERM_CHI2 = 9.0     # a higher amplitude degree is kept only if it low
 MAX_GAIN_TIME_DEGREE = 3      # the amplitudes' common gain changes as a polynomial in time of at most this degree
 MAX_LEAK_TIME_DEGREE = 1      # the leak moves as a polynomial in time of at most this degree (each term as above)
 RESIDUAL_HARMONICS = (2, 3)   # radial harmonics of the phase a single leak cannot make; their size is the floor
+HARMONIC_RCOND = 1e-3         # harmonic combinations whose singular value is below this share of the largest drop
 
 
 @dataclass(frozen=True, eq=False)
@@ -259,12 +260,15 @@ def _harmonic_floor(theta: np.ndarray, rel_resid: np.ndarray, rel_sigma: np.ndar
 
     A distortion of the circle into an ellipse (unequal gains) or a three-lobed shape moves points along the circle
     by as much as across it, so the radial harmonics, which the fit can see, size the phase errors it cannot.
+    Only the harmonic combinations the phases pin down count: points at a few distinct phases (six levels evenly
+    round the circle make cos 3 theta and sin 3 theta one column) leave a direction whose estimate is all noise,
+    and its noise, however large, would swing the floor; singular values below HARMONIC_RCOND of the largest drop.
     """
     cols = []
     for m in RESIDUAL_HARMONICS:
         cols += [np.cos(m * theta), np.sin(m * theta)]
     design = np.column_stack(cols) / rel_sigma[:, None]
-    coef, *_ = np.linalg.lstsq(design, rel_resid / rel_sigma, rcond=None)
-    cov = np.linalg.pinv(design.T @ design) * inflation
+    coef, *_ = np.linalg.lstsq(design, rel_resid / rel_sigma, rcond=HARMONIC_RCOND)
+    cov = np.linalg.pinv(design.T @ design, rcond=HARMONIC_RCOND**2, hermitian=True) * inflation
     power = float(np.sum(coef**2) - np.trace(cov))
     return math.sqrt(max(power, 0.0) / 2)

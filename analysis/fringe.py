@@ -206,9 +206,12 @@ def weighted_lsq(image: np.ndarray, model: LsqModel, dark_adu: float = 0.0, clip
     tests/framegen.py's kinds, but they make the fit depend on the fringe phase wherever the envelopes miss fine
     structure of the beams: on the bench simulator's frames that was a 5 mrad error that changes with the gray.
 
-    The phase is that of the envelope's band mean weighted by window x |C| (amplitude over the band, a shape the
-    mirror gray only scales), taken against the model's carrier: a fixed definition, so frames of one sweep
-    share one reference whatever their brightness. The uncertainty is the Fisher information of the weighted
+    The phase is that of the envelope's window-weighted band mean, taken against the model's carrier, as
+    carrier-lsq's: a fixed linear functional of the envelope, so frames of one sweep share one reference whatever
+    their brightness, and light at the carrier that the mirror gray does not touch (a cover-glass ghost) adds one
+    constant phasor, which the cyclic correction removes exactly. (Weighting the mean by |C| as well came no
+    nearer the bound on tests/framegen.py's kinds, and with a ghost |C| turns with the phase: a 3 mrad error the
+    correction cannot see.) The uncertainty is the Fisher information of the weighted
     fit, N^-1 (A^T W^2 V A) N^-1 with N = A^T W A (the window makes it a sandwich).
     """
     crop = np.asarray(image)[model.band.slices].astype(np.float64)
@@ -254,7 +257,7 @@ def weighted_lsq(image: np.ndarray, model: LsqModel, dark_adu: float = 0.0, clip
     coef = params[nb::2] - 1j * params[nb + 1::2]
     envelope = np.tensordot(coef, legendre, axes=1)
     turn = np.exp(1j * (extra_y[gy][:, None] + extra_x[gx][None, :]))
-    lam = model.wy[gy][:, None] * model.wx[gx][None, :] * np.abs(envelope)
+    lam = model.wy[gy][:, None] * model.wx[gx][None, :] * np.ones(envelope.shape)
     hvec = np.tensordot(legendre, lam * turn, axes=([1, 2], [0, 1]))  # L = sum_j coef_j h_j
     total = complex(coef @ hvec)
     # Re L and Im L as real linear forms in the parameters, for the gradient of the phase.
@@ -566,15 +569,16 @@ def cosine_fit(image: np.ndarray, band: Band, carrier: Carrier, dark_adu: float 
 
 
 METHODS = ("weighted-lsq", "carrier-lsq", "fourier", "cosine-fit")
-# Honest uncertainty and fast enough for every frame of a live sweep. weighted-lsq comes nearer the simulator's
-# truth (benchmarks/bench_analysis.py: 0.40 against 0.51 mrad RMS at nominal light, 0.41 against 0.93 with
-# clipped crests) but is ten times slower and, like this one, short of 1.2x the bound on some of tests/framegen.py's
-# kinds, so it is not the default yet.
+# Live sweeps: an honest uncertainty and fast enough for every frame. weighted-lsq comes nearer the bound
+# (benchmarks/bench_analysis.py: 0.40 against 0.51 mrad RMS at nominal light, 0.41 against 0.93 with clipped
+# crests; 1.03-1.25x the Cramer-Rao bound on tests/framegen.py's frames, where this one reaches 1.3-1.7x) but is ten
+# times slower, so it is the default where time is not short: re-analysing saved frames (`fringecal analyze`).
 DEFAULT_METHOD = "carrier-lsq"
+REANALYSIS_METHOD = "weighted-lsq"
 # When to choose each: the --method help is built from these lines.
 METHOD_NOTES = {
-    "weighted-lsq": "least squares with each pixel weighted by its noise; nearest the truth in the analysis "
-                    "benchmark but ten times slower: for re-analysing saved frames",
+    "weighted-lsq": "least squares with each pixel weighted by its noise; nearest the Cramer-Rao bound but ten "
+                    "times slower: for re-analysing saved frames",
     "carrier-lsq": "least squares over every band pixel; an honest uncertainty and fast enough for live sweeps",
     "fourier": "Takeda's Fourier-transform method; for bands many fringes wide, to cross-check",
     "cosine-fit": "a cosine fit to the band's profile across the fringes; simple, to compare with a one-row analysis",

@@ -61,6 +61,9 @@ NOTES = {
     "camera.discard_frames": "copy from `fringecal timing` (opencv frames carry no exposure timestamps)",
     "geometry.distance_mm": "`fringecal plan` recommends one",
     "sweep.settle_s": "copy from `fringecal timing`",
+    "sweep.frames_per_level": "'auto' measures how much the table's vibration scatters the frames and takes enough",
+    "sweep.order": "shuffled: slow drifts (warming, a turning cover-glass ghost) then scatter about the curve, where "
+                   "the drift references and the uncertainty see them, instead of bending it along the gray axis",
     "baud": "as set on the instrument",
     "commands": "the fringecal defaults (SCPI style): change them to the instrument's manual",
 }
@@ -71,8 +74,10 @@ WRITTEN = {
     "camera": ("backend", "device", "width_px", "height_px", "pitch_um", "bit_depth", "exposure_s", "gain_db",
                "discard_frames", "grab_timeout_s"),
     "geometry": ("distance_mm", "incidence_deg"),
-    "sweep": ("settle_s",),
+    "sweep": ("settle_s", "frames_per_level", "order"),
 }
+# A real bench's starter departs from the code's defaults (kept simple for the ideal simulated bench) here:
+RECOMMENDED = {"camera.backend": "opencv", "sweep.frames_per_level": "auto", "sweep.order": "shuffled"}
 COMMAND_KEYS = {"shutter": ("open_command", "close_command", "state_command"), "power_meter": ("measure_command",),
                 "rotator": ("move_command", "position_command", "angle_deg"), "thermometer": ("measure_command",)}
 WIDTH = 118  # comment lines wrap like the project's code
@@ -185,7 +190,7 @@ def _values(answers: dict) -> dict:
         values.update({f"{section}.{k}": defaults[section][k] for k in keys})
     for role, keys in COMMAND_KEYS.items():
         values.update({f"accessories.{role}.{k}": defaults["accessories"][role][k] for k in ("port", "baud", *keys)})
-    values["camera.backend"] = "opencv"  # a real bench: the default "sim" camera is the simulator's
+    values.update(RECOMMENDED)  # a real bench: the default "sim" camera is the simulator's, and so on
     values.update(answers)
     if values["camera.backend"] == "opencv":
         values["camera.bit_depth"] = OPENCV_BIT_DEPTH

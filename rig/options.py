@@ -99,11 +99,11 @@ def add_run_options(p) -> None:
     add_acknowledgement_flag(p)
 
 
-def add_method_option(p) -> None:
+def add_method_option(p, default: str = DEFAULT_METHOD) -> None:
     """--method, its help saying when to choose each estimator (from the estimators' own notes)."""
-    choices = "; ".join(f"{name}{' (default)' if name == DEFAULT_METHOD else ''}: {METHOD_NOTES[name]}"
+    choices = "; ".join(f"{name}{' (default)' if name == default else ''}: {METHOD_NOTES[name]}"
                         for name in METHODS)
-    p.add_argument("--method", choices=METHODS, default=DEFAULT_METHOD, metavar="NAME",
+    p.add_argument("--method", choices=METHODS, default=default, metavar="NAME",
                    help=f"fringe-phase estimator, one of {choices}")
 
 

@@ -8,7 +8,7 @@ import numpy as np
 import pytest
 
 from analysis.config import replace
-from analysis.fringe import DEFAULT_METHOD
+from analysis.fringe import REANALYSIS_METHOD
 from conftest import split_for
 from rig.cli import main
 from synthetic import fringes
@@ -62,7 +62,7 @@ def test_simulated_folder_end_to_end(sim_folder, tmp_path, capsys):
     assert data[0, 4] == 4  # gray 0: the first frame and three drift references
     summary = json.loads((out / "analysis.json").read_text())
     assert json.loads(capsys.readouterr().out) == summary
-    assert summary["method"] == DEFAULT_METHOD and summary["drift"]["reference_visits"] == 4
+    assert summary["method"] == REANALYSIS_METHOD and summary["drift"]["reference_visits"] == 4
     assert summary["carrier"]["period_px"] == pytest.approx(6 * 8.5 / 4.8, rel=0.01)
     assert summary["range_rad"] == pytest.approx(np.ptp(truth[grays]), abs=0.05)
     assert (out / "phase.png").stat().st_size > 1000

@@ -224,6 +224,7 @@ CONFIG_VALUES = {
                        "camera.width_px"),
     "saturating-light": ("power_mw = 0.25", "power_mw = 90000.0", 3, "attenuate"),
     "toml-cut-short": ("[sweep]", "[sweep", 2, "bad.toml"),
+    "frames-per-level-word": ("frames_per_level = 2", 'frames_per_level = "many"', 2, "sweep.frames_per_level"),
 }
 for _name, (_old, _new, _code, _culprit) in CONFIG_VALUES.items():
     case(f"config-{_name}", _code, _culprit)(

@@ -9,6 +9,7 @@ as nuisance parameters (S. M. Kay, Fundamentals of Statistical Signal Processing
 from memory).
 """
 
+import json
 import math
 
 import numpy as np
@@ -109,22 +110,23 @@ def test_noise_model_fitted_on_the_frame_matches_the_sensor():
         assert fitted.std_rad == pytest.approx(given.std_rad, rel=0.04)
 
 
-# The issue asks for 1.2x. weighted-lsq reaches 1.03-1.19x on eight kinds, 1.20x with vibration and 1.25x with
-# clipped crests (seed 7, 204 frames: +-5 % on these ratios). Weights that follow the fringes reach 1.02-1.16x on
-# every kind but break the phase's covariance on structured frames (see weighted_lsq), so they are not used.
-LIMIT = {"clipping crests": 1.3}
+# The issue asks for 1.2x. weighted-lsq reaches (seed 7, 204 frames a kind: +-5 % on these ratios) 1.06 low
+# light, 1.07 chirped, 1.12 drift, 1.13 clean, 1.15 gray-dependent amplitude, 1.17 4 pi and steep, 1.18 vibration,
+# 1.20 clipped crests. Weights that follow the fringes reach 1.02-1.16x on every kind but break the phase's
+# covariance on structured frames (see weighted_lsq), so they are not used.
+LIMIT = 1.2
 
 
 @pytest.mark.parametrize("name", [k for k in KINDS if k != "ghost"])
 def test_weighted_estimator_near_the_bound_with_honest_std(name):
     """On every kind but the ghost weighted-lsq's rms error (one offset removed; any error that depends on the
-    phase or the brightness stays in) is within 1.25x the bound (1.3x with clipped crests), and the stated std is
-    within 0.8-1.25 of the actual scatter."""
+    phase or the brightness stays in) is within 1.2x the bound, and the stated std is within 0.8-1.25 of the
+    actual scatter."""
     kind = KINDS[name]
     if name in DRAWS:
         kind = fg.replace(kind, levels=kind.levels[:3])
     result = fg.trial(kind, weighted_estimator(kind), DRAWS.get(name, 34), np.random.default_rng(7))
-    assert result.ratio <= LIMIT.get(name, 1.25)
+    assert result.ratio <= LIMIT
     assert 0.8 <= result.honesty <= 1.25
 
 
@@ -177,3 +179,50 @@ def test_fourier_method_agrees_with_a_plain_takeda_reference():
     assert np.max(np.abs(diff)) < 5e-3
     steps = np.angle(np.exp(1j * (np.array(got) - truth)))
     assert np.ptp(steps) < 5e-3
+
+
+def analyze_framegen(tmp_path, kind, draws, rng):
+    """``fringecal analyze`` (its default estimator) on ``draws`` frames of each of ``kind``'s levels, written as
+    .npy files with a manifest (gray 40 i for level i), the band given as --roi. Returns phase.csv's rows
+    (gray, phase, std) and the truth: each level's fringe phase above level 0's."""
+    from rig.cli import main
+    folder = tmp_path / kind.name.replace(" ", "-")
+    folder.mkdir()
+    rows = ["gray,file,time_s"]
+    for i, level in enumerate(kind.levels):
+        electrons = fg.light_e(kind, level)
+        for j in range(draws):
+            name = f"l{i}-{j:02d}.npy"
+            np.save(folder / name, fg.draw(kind, electrons, rng))
+            rows.append(f"{40 * i},{name},{len(rows)}")
+    (folder / "manifest.csv").write_text("\n".join(rows) + "\n")
+    x0, x1, y0, y1 = kind.band
+    out = tmp_path / "out"
+    assert main(["analyze", str(folder), "--out", str(out), "--roi", f"{x0}:{x1},{y0}:{y1}", "--sign", "+1",
+                 "--dark-adu", str(kind.sensor.offset_adu), "--bit-depth", "8"]) == 0
+    table = np.loadtxt(out / "phase.csv", delimiter=",", skiprows=1, usecols=(0, 1, 2))
+    truth = np.array([lv.phase_rad - kind.levels[0].phase_rad for lv in kind.levels])
+    return table, truth
+
+
+@pytest.mark.parametrize("name", ["clean", "low light", "chirped period", "gray-dependent amplitude", "ghost"])
+def test_analyze_command_is_near_the_bound_with_honest_std(tmp_path, name):
+    """The `fringecal analyze` command, default options, on framegen frames: each level's pixel-noise part of the
+    stated std (analysis.json's budget) is within 1.25x of the bound for the mean of its frames, and, one common
+    offset removed (the curve is relative to one level, whose own error moves all the others alike), the levels
+    agree with the truth to a chi-square per degree of freedom below 3 with the whole stated std (the 99.9th
+    percentile of chi-square with 5 degrees of freedom over 5 is 4.1). With the ghost (6 % of the mirror beam's
+    field, a cyclic error of +-62 mrad) the cyclic correction must make the levels honest too; its noise part may
+    reach 2x the bound there (issue 12)."""
+    kind = KINDS[name]
+    draws = 16
+    table, truth = analyze_framegen(tmp_path, kind, draws, np.random.default_rng(11))
+    assert table.shape == (len(kind.levels), 3)
+    err = np.angle(np.exp(1j * (table[:, 1] - truth)))
+    std = table[:, 2]
+    bounds = np.array([fg.frame_bound_rad(kind, lv) for lv in kind.levels]) / math.sqrt(draws)
+    budget = json.loads((tmp_path / "out" / "analysis.json").read_text())["budget_per_level"]
+    limit = 2.0 if name == "ghost" else 1.25  # issue 12: within 2x with a coherent ghost
+    assert np.all(np.array([row["pixel_noise_rad"] for row in budget]) <= limit * bounds)
+    offset = np.average(err, weights=std**-2)
+    assert np.sum(((err - offset) / std) ** 2) / (err.size - 1) < 3.0

@@ -14,6 +14,7 @@ import numpy as np
 import pytest
 from conftest import small_config_file
 
+from configs import DEFAULT_SIM
 from rig.cli import main
 from rig.output.runs import read_journal
 
@@ -46,10 +47,12 @@ def config_file(tmp_path, text, name="bench.toml"):
 @pytest.mark.timeout(600)  # the demo bench is the realistic one: every non-ideality on, about 2.5 min of CPU
 def test_run_recovers_the_true_curve_and_tunes_a_pi_step(tmp_path, capsys, extra):
     """The main job on the simulator: the curve within 0.03 rad rms of the truth and a tuned pair whose true step
-    is within 0.15 rad of pi (the best pair of a binary grating is a pi step, common practice)."""
-    args = ["run", "--sim", "--out", str(tmp_path / "run")]
-    if extra:
-        args += ["--config", str(config_file(tmp_path, extra))]
+    is within 0.15 rad of pi (the best pair of a binary grating is a pi step, common practice). The demo bench
+    aims at 4 mrad a level here, not its 2 (four frames a level, not fifteen, keep the test's time); how near the
+    truth a run comes is tests/test_truth.py's and the coverage benchmark's business."""
+    if not extra:
+        extra = DEFAULT_SIM.read_text().replace("[sweep]\n", "[sweep]\ntarget_std_mrad = 4.0\n", 1)
+    args = ["run", "--sim", "--out", str(tmp_path / "run"), "--config", str(config_file(tmp_path, extra))]
     assert main(args) == 0
     run = tmp_path / "run"
     info = json.loads((run / "run.json").read_text())

@@ -14,12 +14,13 @@ import numpy as np
 
 from analysis.config import Config, load_config, replace
 from configs import HERE
+from rig.run.stages import AUTO_FRAMES
 from rig.run.steps import run_seconds
 
 COUNT = 8                   # variants in the benchmark
 WARMING_K = 5.0             # panel warming during the sweep (issue 12)
 INNER_REFLECTANCE = 0.005   # cover glass/ITO/LC interface, intensity (issue 12: 0.1-1 %)
-FRAMES_PER_LEVEL = 4        # as the demo benches: frames scatter by vibration and flicker, as on a real table
+FRAMES_PER_LEVEL = "auto"   # as the demo benches: the scatter probe sets the frames that vibration and flicker need
 
 # strength ranges (uniform draws)
 CROSSTALK_PX = (0.5, 1.2)        # fringing-field smoothing sigma, about a pixel for 8 um LCOS (from memory)
@@ -38,9 +39,26 @@ def small_bench() -> Config:
     return load_config(HERE / "small-bench.toml")
 
 
+def expected_frames(cfg: Config) -> int:
+    """The frames per level 'auto' should choose on this bench (within rig.run.stages.AUTO_FRAMES): a panel tilt
+    alpha moves the fringes by 2 k alpha z sin(theta_1), the lever being the shear of the grating's first order
+    over the distance z (simulators/bench.py); flicker and pixel noise are left out (they are smaller here)."""
+    if cfg.sweep.frames_per_level != "auto":
+        return cfg.sweep.frames_per_level
+    k = 2 * math.pi / (cfg.laser.wavelength_nm * 1e-9)
+    sin_first = cfg.laser.wavelength_nm * 1e-9 / (cfg.pattern.grating_period_px * cfg.modulator.pitch_um * 1e-6)
+    jitter = 2 * k * cfg.simulator.timing.vibration_urad * 1e-6 * cfg.geometry.distance_mm * 1e-3 * sin_first
+    fewest, most = AUTO_FRAMES
+    return min(max(math.ceil((jitter / (cfg.sweep.target_std_mrad * 1e-3)) ** 2), fewest), most)
+
+
 def warming_rate_k_per_min(cfg: Config, kelvin: float = WARMING_K) -> float:
-    """The steady ramp (K/min) that warms the panel by ``kelvin`` over the sweep (its duration at the frame rate)."""
-    sweep_s = run_seconds(cfg, cfg.simulator.timing.frame_rate_hz)
+    """The steady ramp (K/min) that warms the panel by about ``kelvin`` over the sweep (its duration at the frame
+    rate, with the frames per level 'auto' is expected to choose)."""
+    n = expected_frames(cfg)
+    resolved = replace(cfg, **{"sweep.frames_per_level": n,
+                               "sweep.reference_frames": max(cfg.sweep.reference_frames, n)})
+    sweep_s = run_seconds(resolved, cfg.simulator.timing.frame_rate_hz)
     return kelvin / (sweep_s / 60.0)
 
 
@@ -53,6 +71,7 @@ def variant(index: int, base: Config | None = None) -> tuple[str, Config]:
     changes = {
         "simulator.seed": 100 + index,
         "sweep.frames_per_level": FRAMES_PER_LEVEL,
+        "sweep.order": "shuffled",  # as the demo benches: slow drifts do not follow the gray
         "simulator.response.crosstalk_px": u(CROSSTALK_PX),
         "simulator.response.polarization_deg": pol,
         "simulator.response.thickness_variation": u(THICKNESS),

@@ -12,7 +12,7 @@ import numpy as np
 from analysis.band import Band, find_band, survey_band
 from analysis.carrier import NoFringesError
 from analysis.curve import CurveError, phase_curve
-from analysis.fringe import estimate, lsq_model
+from analysis.fringe import REANALYSIS_METHOD, estimate, lsq_model
 from analysis.imageio import DEFAULT_NAME_PATTERN, ImageFolderError, list_images, read_image
 from rig.errors import UsageError
 from rig.options import add_method_option, number, output_folder
@@ -31,7 +31,7 @@ def register(command) -> None:
                         "or a folder of images named by gray")
     p.add_argument("--out", required=True, metavar="DIR", help="folder for phase.csv, analysis.json and phase.png")
     p.add_argument("--roi", metavar="x0:x1,y0:y1", help="fringe band in image pixels (default: found automatically)")
-    add_method_option(p)
+    add_method_option(p, REANALYSIS_METHOD)
     p.add_argument("--reference-gray", type=int, default=0, metavar="G", help="gray the phases are relative to (default 0)")
     p.add_argument("--sign", default="auto", choices=("auto", "+1", "-1"),
                    help="auto: from --direction; +1/-1: keep or flip the fringe phase as measured")

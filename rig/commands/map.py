@@ -23,7 +23,7 @@ from rig.output.runs import JournalContents, read_journal
 from rig.run.adaptive import adaptive_settings, adaptive_sweep_steps, finish_model, journal_rows, resumed_settings
 from rig.run.folder import RunFolder
 from rig.run.session import Session, guarded, prepare_run
-from rig.run.stages import auto_exposure, locate, take_dark, tune
+from rig.run.stages import auto_exposure, choose_frames, locate, sweep_config, take_dark, tune
 from rig.run.steps import UseRegion, sweep_steps
 
 
@@ -105,6 +105,8 @@ def _measure(args, cfg, folder: RunFolder) -> int:
                 locate(s, low, high)
                 info["tiles"][tile.name] = {"band": folder.info["band"], "carrier": folder.info["carrier"]}
                 folder.update(map=info)
+            choose_frames(s, low, high)  # on the first tile measured ('auto' frames per level only)
+            cfg = sweep_config(cfg, folder.info)
             prefix = f"{tile.name}/"
             if settings is None:
                 s.engine.run(sweep_steps(cfg, low, high, done, prefix=prefix, stage=f"tile {tile.name}"))

@@ -7,8 +7,8 @@ from rig.options import WARMUP_MINUTES, add_run_options, add_sweep_options
 from rig.output.runs import read_result
 from rig.run.adaptive import adaptive_settings
 from rig.run.session import Session, guarded, prepare_run
-from rig.run.stages import (auto_exposure, closing_lines, find_sign, finish, get_ready, scale_reference, sweep, tune,
-                            warm_up)
+from rig.run.stages import (auto_exposure, choose_frames, closing_lines, find_sign, finish, get_ready,
+                            scale_reference, sweep, tune, warm_up)
 
 
 def register(command) -> None:
@@ -36,6 +36,7 @@ def cmd_run(args) -> int:
             auto_exposure(s, result.low, result.high)  # the tuned first order is brighter than the starting pair's
             find_sign(s, result.low, result.high)
             scale_reference(s, opposite)
+            choose_frames(s, result.low, result.high)
             sweep(s, result.low, result.high, adaptive=settings)
             bench = s.devices.bench
         summary = finish(folder, cfg, args.method, bench, settings)

@@ -14,7 +14,8 @@ from rig.output.runs import read_journal
 from rig.run.adaptive import adaptive_settings, resumed_settings
 from rig.run.folder import RunFolder
 from rig.run.session import Session, guarded, prepare_run
-from rig.run.stages import closing_lines, find_sign, finish, get_ready, scale_reference, sweep, warm_up
+from rig.run.stages import (choose_frames, closing_lines, find_sign, finish, get_ready, scale_reference, sweep,
+                            warm_up)
 
 
 def register(command) -> None:
@@ -73,6 +74,7 @@ def cmd_sweep(args) -> int:
             warm_up(s, low, high, args.warmup_minutes)
             find_sign(s, low, high)
             scale_reference(s, opposite)
+            choose_frames(s, low, high)
             sweep(s, low, high, adaptive=settings)
             bench = s.devices.bench
         return _finish(folder, cfg, args.method, bench, settings)

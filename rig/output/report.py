@@ -301,7 +301,12 @@ def _setup(info: dict) -> list[tuple[str, str]]:
                                      f"{pair.get('low', pat['grating_low'])}/{pair.get('high', pat['grating_high'])}"))
     if sweep:
         levels = sweep["levels"] if isinstance(sweep["levels"], str) else f"{len(sweep['levels'])} levels"
-        rows.append(("sweep", f"{levels}, {sweep['frames_per_level']} frames per level, settle {sweep['settle_s']:g} s,"
+        frames = sweep["frames_per_level"]
+        if frames == "auto" and info.get("auto_frames"):
+            chosen = info["auto_frames"]
+            frames = (f"{chosen['per_level']} (auto: frames scatter {1e3 * chosen['frame_scatter_rad']:.1f} mrad, "
+                      f"target {1e3 * chosen['target_rad']:g} mrad a level)")
+        rows.append(("sweep", f"{levels}, {frames} frames per level, settle {sweep['settle_s']:g} s,"
                               f" reference gray {sweep['reference_gray']} every {sweep['reference_every']} levels"
                               + (f" ({sweep['reference_frames']} frames a visit)"
                                  if "reference_frames" in sweep else "")))

@@ -18,7 +18,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from analysis import adaptive
-from analysis.curve import CurveError, phase_curve
+from analysis.curve import CurveError, sweep_curve
 from analysis.recalibrate import ShapeCheck, check_shape, recalibration_levels, unwrapped_consistently
 from rig.errors import UsageError
 from rig.run.steps import Checkpoint, Grab, Settle, ShowSplit, Stage, frames_for
@@ -74,20 +74,14 @@ def fit_levels(rows: list[tuple], cfg, settings: AdaptiveSettings, direction: st
     second reference gray (None: piston drift only).
 
     Rows are put in time order first, so frames met live and frames read back from the journal give the same sums.
-    The curve is made as the full sweep's finish makes it (rig.run.stages.curve_from_frames): the cyclic-error fit
-    on the frames' complex fringe amplitudes (when every frame has one), and the scale drift, once the second gray
-    has frames, referred to the middle of the frames' times.
+    The curve is made as the full sweep's finish makes it (analysis.curve.sweep_curve).
     """
     rows = sorted((r for r in rows if r[1] is not None), key=lambda r: (r[3], r[0], r[1]))
     if not rows:
         raise CurveError("adaptive sweep: no measured frame")
     gray, phase, std, t_s, contrast, amplitude = (np.array(c, dtype=float) for c in zip(*rows))
-    gray = gray.astype(int)
-    has_amplitude = bool(np.all(np.isfinite(amplitude) & (amplitude > 0)))
-    curve = phase_curve(gray, phase, std, t_s, contrast, cfg.sweep.reference_gray, None, smooth=False,
-                        direction=direction, amplitude=amplitude if has_amplitude else None,
-                        scale_gray=scale_gray if scale_gray is not None and np.any(gray == scale_gray) else None,
-                        scale_at_s=0.5 * (t_s.min() + t_s.max()))
+    curve, _, _ = sweep_curve(gray.astype(int), phase, std, t_s, contrast, amplitude, cfg.sweep.reference_gray,
+                              direction=direction, scale_gray=scale_gray)
     way = 1 if curve.phase_rad[-1] >= curve.phase_rad[0] else -1
     shape = None
     if settings.shape_rad is not None:

@@ -1,15 +1,18 @@
 """The stages every measurement shares, in the order a run takes them: dark level, exposure, fringe band, tuning,
-warm-up, sweep and finishing. Each measures on the session's bench, records what it found in the run folder, and
+warm-up, the sign, frames per level, sweep and finishing. Each measures on the session's bench, records what it found in the run folder, and
 returns what the next stage needs."""
 
 from __future__ import annotations
+
+import math
 
 import numpy as np
 
 from analysis.band import Band
 from analysis.carrier import Carrier, NoFringesError
 from analysis.agreement import agreement
-from analysis.curve import CurveError, phase_curve
+from analysis.config import replace
+from analysis.curve import CurveError, frames_for_target, sweep_curve
 from analysis.adaptive import table_error_rad
 from analysis.lut import build_lut, monotone_cubic
 from analysis.sign import probe_direction, staircase_grays
@@ -21,8 +24,8 @@ from rig.output.runs import read_journal
 from rig.run.adaptive import AdaptiveSettings, adaptive_sweep_steps, finish_model, journal_rows
 from rig.run.folder import RunFolder
 from rig.run.session import Session
-from rig.run.steps import (StepError, exposure_steps, locate_steps, opposite_gray, sign_steps, sweep_steps, tune_steps,
-                           warmup_steps)
+from rig.run.steps import (StepError, exposure_steps, locate_steps, opposite_gray, scatter_steps, sign_steps,
+                           sweep_steps, tune_steps, warmup_steps)
 
 MIN_TUNED_CONTRAST = 0.10
 
@@ -187,6 +190,50 @@ def scale_reference(s: Session, opposite: int) -> int | None:
     return gray
 
 
+AUTO_FRAMES = (2, 16)  # frames per level 'auto' chooses within (two or more: a level's own scatter is then seen)
+PROBE_FRAMES = 10      # back-to-back frames of the scatter probe at each reference gray
+
+
+def choose_frames(s: Session, low: int, high: int) -> None:
+    """Frames stage, for ``sweep.frames_per_level`` 'auto' (nothing otherwise, or when run.json has the choice):
+    PROBE_FRAMES back to back at the reference gray (and at run.json's ``scale_gray``), whose scatter beyond
+    their pixel noise (vibration, flicker) sets the frames per level that bring a level's standard error to
+    ``sweep.target_std_mrad`` (analysis.curve.frames_for_target), within AUTO_FRAMES.
+
+    Writes ``frames`` (the choice and the figures behind it) into run.json; returns nothing.
+    """
+    cfg = s.cfg
+    if cfg.sweep.frames_per_level != "auto" or "auto_frames" in s.folder.info:
+        return
+    grays = (cfg.sweep.reference_gray,) + ((s.folder.info["scale_gray"],) if s.folder.info.get("scale_gray")
+                                           is not None else ())
+    measured = s.engine.run(scatter_steps(cfg, low, high, grays, PROBE_FRAMES))
+    rows = [(i, r.phase_rad, r.phase_std_rad) for i, m in enumerate(measured) for r in m.results
+            if r.phase_rad is not None and r.phase_std_rad is not None]
+    target = cfg.sweep.target_std_mrad * 1e-3
+    try:
+        n, scatter, pixel = frames_for_target(*zip(*rows), target, *AUTO_FRAMES)
+    except (CurveError, TypeError):  # TypeError: no frame with a phase at all
+        raise StepError("frames: the scatter probe measured too few fringe phases; check the fringes with "
+                        "`fringecal align`, or set sweep.frames_per_level to a number") from None
+    s.folder.update(auto_frames={"per_level": n, "frame_scatter_rad": scatter, "pixel_noise_rad": pixel,
+                            "target_rad": target, "probe_frames": len(rows)})
+    capped = " (the most it takes)" if n == AUTO_FRAMES[1] and math.hypot(scatter, pixel) > target * n**0.5 else ""
+    s.log(f"frames: {n} a level{capped}: the frames scatter by {1e3 * scatter:.1f} mrad beyond {1e3 * pixel:.2f} "
+          f"mrad of pixel noise, and a level's standard error is to be {1e3 * target:g} mrad")
+
+
+def sweep_config(cfg, info: dict):
+    """``cfg`` with the frames per level the sweep in run.json ``info`` uses ('auto' resolved by choose_frames; the
+    drift-reference visits then take at least as many, since their noise reaches every level)."""
+    if cfg.sweep.frames_per_level != "auto":
+        return cfg
+    if "auto_frames" not in info:
+        raise StepError("frames: sweep.frames_per_level is 'auto' but the scatter probe has not chosen a number")
+    n = int(info["auto_frames"]["per_level"])
+    return replace(cfg, **{"sweep.frames_per_level": n, "sweep.reference_frames": max(cfg.sweep.reference_frames, n)})
+
+
 def warm_up(s: Session, low: int, high: int, minutes: float) -> None:
     """Warm-up stage: the drift of the reference pattern's fringe phase (rad/min) while it is held, until it is stable
     or ``minutes`` pass (nothing is done for ``minutes`` <= 0).
@@ -216,14 +263,15 @@ def sweep(s: Session, low: int, high: int, done=frozenset(), adaptive: AdaptiveS
     Writes ``pair`` into run.json, and a journal line per frame and per finished unit (frame crops in frames/);
     returns nothing.
     """
+    cfg = sweep_config(s.cfg, s.folder.info)
     s.folder.update(pair={**s.folder.info.get("pair", {}), "low": low, "high": high}, sweep_began=True)
     scale_gray = s.folder.info.get("scale_gray")
     if adaptive is None:
-        s.engine.run(sweep_steps(s.cfg, low, high, done, scale_gray=scale_gray))
+        s.engine.run(sweep_steps(cfg, low, high, done, scale_gray=scale_gray))
         return
     rows = journal_rows(read_journal(s.folder.path / "journal.jsonl").frames()) if done else []
     direction = (s.folder.info.get("direction") or {}).get("direction", "unknown")
-    s.engine.run(adaptive_sweep_steps(s.cfg, low, high, adaptive, done, rows, log=s.log, direction=direction,
+    s.engine.run(adaptive_sweep_steps(cfg, low, high, adaptive, done, rows, log=s.log, direction=direction,
                                       scale_gray=scale_gray))
 
 
@@ -324,27 +372,20 @@ def curve_from_frames(frames: list[dict], reference_gray: int, info: dict, *, cy
     overrides the probe's. ``cyclic`` False leaves the fringe amplitudes out (no cyclic-error fit), to see what the
     correction does. A missing amplitude is noted in ``warnings``.
     """
-    frames = sorted((r for r in frames if r["purpose"] in ("level", "reference") and r["phase_rad"] is not None),
-                    key=lambda r: r["t_s"])
+    frames = [r for r in frames if r["purpose"] in ("level", "reference") and r["phase_rad"] is not None]
     if not frames:
         raise CurveError("sweep: no measured frame")
-    amplitude = [r.get("amplitude_adu") for r in frames]
-    if not all(a is not None and a > 0 for a in amplitude):
-        amplitude = None
-        if cyclic and warnings is not None:
-            warnings.append("no fringe amplitudes recorded: the cyclic error is neither fitted nor corrected")
     measured = (info.get("direction") or {}).get("direction", "unknown")
     chosen = measured if direction is None else direction
     basis = "measured" if direction is None and measured != "unknown" else None
-    scale_gray = info.get("scale_gray")
-    times = [r["t_s"] for r in frames]
-    mid_s = 0.5 * (min(times) + max(times))
-    curve = phase_curve([r["gray"] for r in frames], [r["phase_rad"] for r in frames],
-                        [r["phase_std_rad"] for r in frames], times, [r.get("contrast") for r in frames],
-                        reference_gray, None, smooth=True, direction=chosen, direction_basis=basis,
-                        amplitude=amplitude if cyclic else None,
-                        scale_gray=scale_gray if any(r["gray"] == scale_gray for r in frames) else None,
-                        scale_at_s=mid_s)
+    amplitude = [r.get("amplitude_adu") or np.nan for r in frames] if cyclic else None
+    curve, mid_s, used = sweep_curve([r["gray"] for r in frames], [r["phase_rad"] for r in frames],
+                                     [r["phase_std_rad"] for r in frames], [r["t_s"] for r in frames],
+                                     [r.get("contrast") for r in frames], amplitude, reference_gray,
+                                     direction=chosen, direction_basis=basis, scale_gray=info.get("scale_gray"),
+                                     smooth=True)
+    if cyclic and not used and warnings is not None:
+        warnings.append("no fringe amplitudes recorded: the cyclic error is neither fitted nor corrected")
     return curve, mid_s
 
 

@@ -319,8 +319,26 @@ def sweep_units(cfg, seed: int = 0, prefix: str = "", scale_gray: int | None = N
 
 def frames_for(cfg, purpose: str) -> int:
     """Frames grabbed for a sweep unit: ``sweep.reference_frames`` for a drift reference (its frames follow each
-    other without a settle, so they are cheap, and its noise reaches every level), else ``frames_per_level``."""
-    return cfg.sweep.reference_frames if purpose == "reference" else cfg.sweep.frames_per_level
+    other without a settle, so they are cheap, and its noise reaches every level), else ``frames_per_level``
+    (resolved: 'auto' is replaced by the scatter probe's choice before a sweep's steps are made)."""
+    if purpose == "reference":
+        return cfg.sweep.reference_frames
+    if cfg.sweep.frames_per_level == "auto":
+        raise ValueError("sweep.frames_per_level 'auto' must be resolved by the scatter probe first")
+    return cfg.sweep.frames_per_level
+
+
+def scatter_steps(cfg, low: int, high: int, grays: tuple[int, ...], frames: int):
+    """Hold the split pattern at each of ``grays`` and grab ``frames`` back to back (the scatter probe of
+    frames_per_level 'auto'); return the Measurements in order."""
+    yield Stage("frames", len(grays), what=f"{frames} frames back to back at gray{'s' if len(grays) > 1 else ''} "
+                                           + " and ".join(map(str, grays)))
+    out = []
+    for gray in grays:
+        yield ShowSplit(gray, low, high)
+        yield Settle(cfg.sweep.settle_s)
+        out.append((yield Grab(frames, "scatter", gray, wait=True)))
+    return tuple(out)
 
 
 def sweep_steps(cfg, low: int, high: int, done: frozenset[str] = frozenset(), seed: int = 0, prefix: str = "",
@@ -389,7 +407,7 @@ def hold_steps(cfg, gray: int, low: int, high: int, frames: int):
 def run_seconds(cfg, frame_rate_hz: float) -> float:
     """Lower bound (s) of a sweep's duration: per unit the settle time and its frames, each taking a frame period
     (free running: the first exposure that starts after the settle is at best the next one) or, software triggered,
-    one exposure (the next exposure may start as the last one ends)."""
+    one exposure (the next exposure may start as the last one ends). ``cfg`` has its frames per level resolved."""
     per_frame = cfg.camera.exposure_s
     if cfg.camera.trigger == "free-run":
         per_frame = max(1.0 / frame_rate_hz, per_frame)
