@@ -424,14 +424,15 @@ class Bench:
         return -z_over_k * (c * k_u - s * k_v), -z_over_k * (s * k_u + c * k_v)
 
     def _stacked(self, state: PanelState, t: float) -> np.ndarray:
+        """The region bases (then the summed ghost column) as rows (n_terms, n_pixels), each row contiguous."""
         keys = tuple(r.key for r in state.regions)
         if self._stack_cache is None or self._stack_cache[0] != keys:
-            parts = [self._basis[k].fields for k in keys]
+            parts = [self._basis[k].fields.T for k in keys]
             if self._ghosts is not None:
-                parts.append(self._ghost_column(t)[1][:, None])
-            self._stack_cache = (keys, np.concatenate(parts, axis=1), self._ghost_cache)
+                parts.append(self._ghost_column(t)[1][None, :])
+            self._stack_cache = (keys, np.concatenate(parts, axis=0), self._ghost_cache)
         elif self._ghosts is not None and self._ghost_column(t) is not self._stack_cache[2]:
-            self._stack_cache[1][:, -1] = self._ghost_cache[1]  # warming turned the front ghost: rebuild its share
+            self._stack_cache[1][-1] = self._ghost_cache[1]  # warming turned the front ghost: rebuild its share
             self._stack_cache = (*self._stack_cache[:2], self._ghost_cache)
         return self._stack_cache[1]
 
@@ -497,7 +498,13 @@ class Bench:
         """Irradiance (W/um^2) at every camera pixel at time ``t`` (flattened row-major)."""
         with self._lock:
             state = self.state_at(t)
-            field = self._stacked(state, t) @ self.coefficients(state, t, exposure_s, tilt_urad)
+            rows = self._stacked(state, t)
+            coeffs = self.coefficients(state, t, exposure_s, tilt_urad)
+            # one multiply-add per row, not a BLAS matrix-vector product: for a few rows of many pixels a threaded
+            # gemv spends milliseconds handing work between threads on a busy machine, 20-40 times the arithmetic
+            field = rows[0] * coeffs[0]
+            for row, c in zip(rows[1:], coeffs[1:]):
+                field += row * c
         intensity = field.real**2
         intensity += field.imag**2
         intensity += self.background
