@@ -119,12 +119,12 @@ def split_screen(width: int, height: int, mirror_gray: int, low: int, high: int,
     """Split-screen pattern: uniform ``mirror_gray`` on one half, a low/high binary grating on the other."""
     for name, value in (("mirror_gray", mirror_gray), ("low", low), ("high", high)):
         _check_gray(name, value, bit_depth)
-    img = np.full((height, width), mirror_gray, dtype=dtype_for(bit_depth))
-    half = grating_half(width, height, layout)
-    stripes = grating_mask(width, height, layout)
-    img[half & stripes] = high
-    img[half & ~stripes] = low
-    return img
+    # the split line and the grating's lines are parallel: one row (or column) repeated makes the image
+    along_x = layout.split == "vertical"
+    half, stripes = (image[0] if along_x else image[:, 0]
+                     for image in (grating_half(width, height, layout), grating_mask(width, height, layout)))
+    line = np.where(half, np.where(stripes, high, low), mirror_gray).astype(dtype_for(bit_depth))
+    return np.broadcast_to(line[None, :] if along_x else line[:, None], (height, width)).copy()
 
 
 def staircase_split(width: int, height: int, mirror_gray: int, step_grays, layout: SplitLayout,

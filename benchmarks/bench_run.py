@@ -58,7 +58,7 @@ def run():
     with tempfile.TemporaryDirectory() as tmp:
         folder = Path(tmp)
         small = (HERE / "small-bench.toml").read_text()
-        # a panel's usual settle (0.1 s) and light for a 5 ms exposure: the simulator's 2-5 ms of CPU per frame
+        # a panel's usual settle (0.1 s) and light for a 5 ms exposure: the simulator's 1-2 ms of CPU per frame
         # then hides inside the exposure, as a camera's readout does, instead of adding to every frame
         slow = (small.replace("power_mw = 0.25", "power_mw = 0.075", 1)
                 + REALTIME.replace("settle_s = 0.02", "settle_s = 0.1", 1))

@@ -42,6 +42,7 @@ import hashlib
 import math
 import threading
 import time
+from concurrent.futures import Future, ThreadPoolExecutor
 from dataclasses import dataclass
 
 import numpy as np
@@ -180,6 +181,9 @@ class Bench:
         self._stack_cache: tuple[tuple[bytes, ...], np.ndarray, tuple | None] | None = None
         self._states: collections.deque[PanelState] = collections.deque(maxlen=6)
         self._lock = threading.Lock()
+        # the panel's controller: works out each new panel state in order, off the caller's thread
+        self._controller = ThreadPoolExecutor(max_workers=1, thread_name_prefix="sim-panel")
+        self._shown: Future | None = None
 
         # regions never straddle the configured split line: a region's tilt lever is taken in its own half
         self._side = grating_half(m.width_px, m.height_px, layout_of(cfg.pattern)).astype(np.int32)
@@ -212,16 +216,27 @@ class Bench:
 
     # --- panel -----------------------------------------------------------------------------------------------
     def show(self, pattern: np.ndarray) -> None:
-        """Put ``pattern`` on the panel now; the crystal starts to respond after the display latency."""
+        """Put ``pattern`` on the panel now; the crystal starts to respond after the display latency.
+
+        Like a panel's controller, the bench takes the pattern and returns at once; the new panel state (and the
+        propagated fields of new pixel sets) is worked out in its own thread, and reading the panel waits for it.
+        """
         m = self.cfg.modulator
         if pattern.shape != (m.height_px, m.width_px):
             raise ValueError(f"pattern: expected {m.height_px}x{m.width_px} (rows x columns), got {pattern.shape}")
         if pattern.dtype.kind != "u" or int(pattern.max()) > self.response.gray_max:
             raise ValueError(f"pattern: expected unsigned gray levels up to {self.response.gray_max}")
         t_c = self.clock.now() + self.cfg.simulator.timing.display_latency_s
+        self._shown = self._controller.submit(self._apply, pattern.copy(), t_c)
+
+    def _apply(self, pattern: np.ndarray, t_c: float) -> None:
         with self._lock:
-            old = self._states[-1]
-            self._states.append(self._next_state(old, pattern, t_c))
+            self._states.append(self._next_state(self._states[-1], pattern, t_c))
+
+    def _wait_shown(self) -> None:
+        """Return once every pattern shown so far is on the panel (re-raising a failure to work one out)."""
+        if self._shown is not None:
+            self._shown.result()
 
     def _next_state(self, old: PanelState, pattern: np.ndarray, t_c: float) -> PanelState:
         tau = self.cfg.simulator.timing.lc_tau_s
@@ -255,10 +270,14 @@ class Bench:
             gray, start = starts[index]
             regions.append(Region(gray, start, float(self.response.retardance_rad(gray)), t_c, keys[index]))
             self._ensure_basis(keys[index], masks[index], keep=keys)
-        return PanelState(t_c, relabel[labels], tuple(regions), pattern.copy())
+        return PanelState(t_c, relabel[labels], tuple(regions), pattern)
 
     def state_at(self, t: float) -> PanelState:
         """The panel state in force at time ``t``."""
+        self._wait_shown()
+        return self._state_at(t)
+
+    def _state_at(self, t: float) -> PanelState:
         for state in reversed(self._states):
             if state.t_change <= t:
                 return state
@@ -424,14 +443,15 @@ class Bench:
         return -z_over_k * (c * k_u - s * k_v), -z_over_k * (s * k_u + c * k_v)
 
     def _stacked(self, state: PanelState, t: float) -> np.ndarray:
+        """The region bases (then the summed ghost column) as rows (n_terms, n_pixels), each row contiguous."""
         keys = tuple(r.key for r in state.regions)
         if self._stack_cache is None or self._stack_cache[0] != keys:
-            parts = [self._basis[k].fields for k in keys]
+            parts = [self._basis[k].fields.T for k in keys]
             if self._ghosts is not None:
-                parts.append(self._ghost_column(t)[1][:, None])
-            self._stack_cache = (keys, np.concatenate(parts, axis=1), self._ghost_cache)
+                parts.append(self._ghost_column(t)[1][None, :])
+            self._stack_cache = (keys, np.concatenate(parts, axis=0), self._ghost_cache)
         elif self._ghosts is not None and self._ghost_column(t) is not self._stack_cache[2]:
-            self._stack_cache[1][:, -1] = self._ghost_cache[1]  # warming turned the front ghost: rebuild its share
+            self._stack_cache[1][-1] = self._ghost_cache[1]  # warming turned the front ghost: rebuild its share
             self._stack_cache = (*self._stack_cache[:2], self._ghost_cache)
         return self._stack_cache[1]
 
@@ -495,9 +515,16 @@ class Bench:
 
     def irradiance(self, t: float, exposure_s: float, tilt_urad=(0.0, 0.0)) -> np.ndarray:
         """Irradiance (W/um^2) at every camera pixel at time ``t`` (flattened row-major)."""
+        self._wait_shown()
         with self._lock:
-            state = self.state_at(t)
-            field = self._stacked(state, t) @ self.coefficients(state, t, exposure_s, tilt_urad)
+            state = self._state_at(t)
+            rows = self._stacked(state, t)
+            coeffs = self.coefficients(state, t, exposure_s, tilt_urad)
+            # one multiply-add per row, not a BLAS matrix-vector product: for a few rows of many pixels a threaded
+            # gemv spends milliseconds handing work between threads on a busy machine, 20-40 times the arithmetic
+            field = rows[0] * coeffs[0]
+            for row, c in zip(rows[1:], coeffs[1:]):
+                field += row * c
         intensity = field.real**2
         intensity += field.imag**2
         intensity += self.background
