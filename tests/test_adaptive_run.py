@@ -10,6 +10,7 @@ from conftest import small_config_file
 
 from rig.cli import main
 from rig.output.runs import read_journal
+from rig.run.stages import sweep_config
 from rig.run.steps import sweep_units
 from analysis.config import as_dict, load_config
 from configs import DEFAULT_SIM
@@ -37,7 +38,8 @@ def test_adaptive_run_on_the_demo_bench(tmp_path, capsys):
     assert "table error against the simulator's truth" in text and "adaptive sweep:" in text
     summary = json.loads((out / "analysis.json").read_text())
     assert summary["table_error_vs_truth_rad"] < 0.010
-    cfg = load_config(out / "config.toml")
+    # the frames per level the scatter probe chose (the demo bench's frames_per_level is 'auto')
+    cfg = sweep_config(load_config(out / "config.toml"), json.loads((out / "run.json").read_text()))
     full_frames = len(sweep_units(cfg)) * cfg.sweep.frames_per_level
     assert len(read_csv(out / "manifest.csv")) <= full_frames / 4
     rows = read_csv(out / "phase.csv")
