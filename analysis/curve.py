@@ -34,7 +34,8 @@ OWN_SCATTER_P = 0.01     # a level whose frames scatter beyond the pooled spread
 SCATTER_NEIGHBOURS = 8   # the frames' excess spread is pooled over this many measured levels either side
 SCALE_SIGMAS = 3.0       # a scale drift seen this many standard errors from zero (one reference gray) is warned of
 ROUGHNESS_HALF_WINDOW = 6  # levels either side of a level whose cubic predicts it, for the levels' excess scatter
-ROUGHNESS_MIN_LEVELS = 24  # levels a curve needs before its roughness is judged (sparse curves bend between levels)
+ROUGHNESS_MIN_LEVELS = 64  # levels a curve needs before its roughness is judged ...
+ROUGHNESS_MAX_STEP = 4     # ... at most this many grays apart (median): sparse levels bend beyond a cubic's reach
 DIRECTIONS = {"rising": 1, "falling": -1}
 PHASE_CONVENTION = ("phase is the delay the panel adds to the reflected field (the field is multiplied by "
                     "exp(+i phi(g)), waves written exp(i(k.r - w t))), relative to the reference gray")
@@ -612,11 +613,12 @@ def roughness_excess_rad(gray, phase_rad, std_rad) -> float:
     (a drift the references miss, slow vibration, flicker beating with the frame clock) make them larger: solving
     mean(r_i^2 - v_i) = s^2 mean(1 + q_i), q_i the prediction weights' squared sum, for the common excess s (the
     Birge ratio's remedy, applied to one variance component). Zero unless the residuals' chi-square exceeds its
-    expectation by three standard deviations, or the curve has fewer than ROUGHNESS_MIN_LEVELS levels.
+    expectation by three standard deviations, or the curve is sparse (fewer than ROUGHNESS_MIN_LEVELS levels, or
+    more than ROUGHNESS_MAX_STEP grays between them: an adaptive sweep's levels, whose model judges its own fit).
     """
     g, phi, sig = (np.asarray(v, dtype=float) for v in (gray, phase_rad, std_rad))
     n = g.size
-    if n < ROUGHNESS_MIN_LEVELS:
+    if n < ROUGHNESS_MIN_LEVELS or np.median(np.diff(g)) > ROUGHNESS_MAX_STEP:
         return 0.0
     h = ROUGHNESS_HALF_WINDOW
     r2, v, q = np.empty(n), np.empty(n), np.empty(n)
