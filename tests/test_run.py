@@ -4,6 +4,7 @@ import csv
 import json
 import os
 import random
+import re
 import signal
 import subprocess
 import sys
@@ -51,7 +52,9 @@ def test_run_recovers_the_true_curve_and_tunes_a_pi_step(tmp_path, capsys, extra
     aims at 4 mrad a level here, not its 2 (four frames a level, not fifteen, keep the test's time); how near the
     truth a run comes is tests/test_truth.py's and the coverage benchmark's business."""
     if not extra:
-        extra = DEFAULT_SIM.read_text().replace("[sweep]\n", "[sweep]\ntarget_std_mrad = 4.0\n", 1)
+        demo = DEFAULT_SIM.read_text()
+        extra = re.sub(r"(?m)^target_std_mrad = .*$", "target_std_mrad = 4.0", demo)
+        assert extra != demo
     args = ["run", "--sim", "--out", str(tmp_path / "run"), "--config", str(config_file(tmp_path, extra))]
     assert main(args) == 0
     run = tmp_path / "run"
