@@ -15,6 +15,7 @@ import math
 from dataclasses import dataclass
 
 import numpy as np
+from scipy.interpolate import PchipInterpolator
 
 MIN_RATIO = 2.0  # the stronger orientation's fringe amplitude must exceed the weaker's this many times
 # a coarse scan is unwrapped only where its fringe phase moves at most this much between neighbouring grays (rad):
@@ -58,16 +59,16 @@ def staircase_grays(grays, fringe_phase_rad, reference_gray: int, steps: int) ->
     (gray, fringe phase) scan fine enough to unwrap (``scan_midpoints`` finds none); the phase's sign is not needed,
     only its size growing with gray.
 
-    Where the panel reaches less than a target, the gray of its largest phase is used: the staircase is then short
-    of a full blaze but still steers most light one way.
+    Between the scan's grays the curve is the shape-preserving piecewise cubic through them (PCHIP), which follows
+    the curve's bend where straight lines cut across it. Where the panel reaches less than a target, the gray of
+    its largest phase is used: the staircase is then short of a full blaze but still steers most light one way.
     """
     grays = np.asarray(grays)
     order = np.argsort(grays)
     grays = grays[order]
-    curve = np.unwrap(np.asarray(fringe_phase_rad, float)[order])
-    size = np.abs(curve - np.interp(reference_gray, grays, curve))
+    curve = PchipInterpolator(grays, np.unwrap(np.asarray(fringe_phase_rad, float)[order]))
     fine = np.arange(grays.min(), grays.max() + 1)
-    reach = np.maximum.accumulate(np.interp(fine, grays, size))
+    reach = np.maximum.accumulate(np.abs(curve(fine) - curve(reference_gray)))
     targets = 2 * math.pi * np.arange(steps) / steps
     index = np.minimum(np.searchsorted(reach, targets), fine.size - 1)
     index[0] = int(np.argmin(np.abs(fine - reference_gray)))
