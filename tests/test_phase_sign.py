@@ -6,10 +6,16 @@ psi = -pi r^2 / (lambda f) focuses at f > 0 (J. W. Goodman, Introduction to Four
 -k r^2 / 2f in the exp(-i w t) convention).
 """
 
+from types import SimpleNamespace
+
 import numpy as np
 import pytest
 
 from analysis.config import replace
+from analysis.fringe import DEFAULT_METHOD
+from rig.run.folder import RunFolder
+from rig.run.session import Session
+from rig.run.stages import find_sign, get_ready
 from simulators.bench import Bench
 
 
@@ -85,3 +91,53 @@ def test_a_lens_through_the_true_curve_focuses_for_positive_f(bench, focal_mm):
         assert share > 0.5
     else:
         assert share < 0.01
+
+
+# A 12-bit panel with a 5.8 um cell (about 4 pi at 1064 nm) that starts 3 K colder than it will settle: the range a
+# little wider than 4 pi over 4096 grays.
+STEEP_PANEL = {"modulator.bit_depth": 12, "pattern.grating_high": 2048, "simulator.response.cell_gap_um": 5.8,
+               "simulator.timing.warmup_k": 3.0, "simulator.timing.warmup_tau_s": 240.0}
+
+
+def test_a_steep_curve_is_scanned_finely_enough_to_draw_the_staircase(small_cfg):
+    """Sampled at 8 even grays, a 4 pi curve on 4096 grays moves by more than pi between neighbours where it is
+    steepest (Nyquist: a phase step of more than pi aliases to its image 2 pi away) and unwraps the wrong way. With
+    the midpoints scan_midpoints asks for, the staircase's grays sit at the intended phase steps 2 pi k / 6 of the
+    simulator's true curve, whichever way the fringe phase runs and whatever its offset."""
+    from analysis.sign import scan_midpoints, staircase_grays
+    from rig.run.steps import LOCATE_GRAYS
+
+    _, phi = Bench(replace(small_cfg, **STEEP_PANEL)).true_curve(at_s=0.0)
+    assert abs(phi[-1]) > 4 * np.pi
+    for sign in (1, -1):
+        def fringe(g):
+            return list(np.angle(np.exp(1j * (sign * phi[g] + 0.7))))
+        scan = [round(i * 4095 / (LOCATE_GRAYS - 1)) for i in range(LOCATE_GRAYS)]
+        for _ in range(6):
+            extra = scan_midpoints(scan, fringe(scan))
+            if not extra:
+                break
+            scan = sorted(scan + list(extra))
+        assert not scan_midpoints(scan, fringe(scan)) and len(scan) <= 8 + 24
+        steps = staircase_grays(scan, fringe(scan), 0, 6)
+        np.testing.assert_allclose(np.abs(phi[list(steps)]), 2 * np.pi * np.arange(6) / 6, atol=0.015)
+
+
+def test_the_sign_probe_names_a_steep_panels_direction(tmp_path, small_cfg):
+    """The band and sign stages on the steep 12-bit panel: the probe's staircase is a blaze whose steps are the
+    intended 2 pi / 6 on the true curve, so the strong fringes come with the staircase rising away from the mirror
+    half (the phase falls with gray, analysis/sign.py). Achieved: ratio 215 (0.8-1.0, 'unknown', with the 8-gray
+    scan alone), steps within 0.007 rad."""
+    cfg = replace(small_cfg, **STEEP_PANEL)
+    folder = RunFolder.create(tmp_path / "run", cfg, ["test"], {"camera_backend": "sim"}, save_frames=False)
+    args = SimpleNamespace(sim=True, method=DEFAULT_METHOD, events=None)
+    with Session(args, cfg, folder, "band and sign") as s:
+        get_ready(s, cfg.pattern.grating_low, cfg.pattern.grating_high)
+        assert find_sign(s, cfg.pattern.grating_low, cfg.pattern.grating_high) == "falling"
+        at_s = s.devices.clock.now()
+    probe = folder.info["direction"]
+    assert probe["ratio"] > 100
+    _, phi = Bench(cfg).true_curve(at_s=at_s)
+    steps = probe["step_grays"]
+    np.testing.assert_allclose(np.abs(phi[steps] - phi[steps[0]]), 2 * np.pi * np.arange(len(steps)) / len(steps),
+                               atol=0.015)

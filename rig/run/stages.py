@@ -15,7 +15,7 @@ from analysis.config import replace
 from analysis.curve import CurveError, frames_for_target, sweep_curve
 from analysis.adaptive import table_error_rad
 from analysis.lut import build_lut, monotone_cubic
-from analysis.sign import probe_direction, staircase_grays
+from analysis.sign import probe_direction, scan_midpoints, staircase_grays
 from rig.output.lut_files import metadata, write_lut_folder
 from rig.output.numbers import fixed, with_std
 from rig.output.report import write_report
@@ -28,6 +28,7 @@ from rig.run.steps import (StepError, exposure_steps, locate_steps, opposite_gra
                            sweep_steps, tune_steps, warmup_steps)
 
 MIN_TUNED_CONTRAST = 0.10
+MAX_SCAN_EXTRA = 24  # grays the band stage may add to its coarse scan where the fringe phase moves fast
 
 
 def take_dark(s: Session) -> float:
@@ -119,11 +120,30 @@ def locate(s: Session, low: int, high: int) -> int:
                                      "contrast": survey.contrast})
         s.log(f"fringe band x {b.x0}..{b.x1}, y {b.y0}..{b.y1}: {survey.fringe_count:.0f} fringes of "
               f"{c.period_px:.2f} px at {fixed(c.angle_deg, 1)} deg")
-        grays = [m.results[0].gray for m in measurements]
-        phases = [s.analyzer(img, g, "locate", 0.0, 0).phase_rad for img, g in zip(images, grays)]
+        grays, phases = coarse_scan(s, low, candidate, measurements)
         s.folder.update(coarse_scan={"gray": grays, "fringe_phase_rad": phases})
         return opposite_gray(grays, phases, s.cfg.sweep.reference_gray)
     raise StepError("locate: " + "; ".join(tried))
+
+
+def coarse_scan(s: Session, low: int, high: int, measurements) -> tuple[list[int], list[float]]:
+    """The band stage's (gray, fringe phase) scan, in gray order: the phases of the located ``measurements``, with
+    grays added (at most MAX_SCAN_EXTRA) where the phase moves too far between neighbours to be unwrapped
+    (analysis.sign.scan_midpoints); logs the gaps still too wide when the extra grays run out."""
+    def phases_of(ms):
+        return {m.results[0].gray: s.analyzer(m.images[0], m.results[0].gray, "locate", 0.0, 0).phase_rad for m in ms}
+
+    scan = phases_of(measurements)
+    budget = MAX_SCAN_EXTRA
+    while (extra := scan_midpoints(list(scan), list(scan.values()))) and budget > 0:
+        extra = extra[:budget]
+        budget -= len(extra)
+        scan |= phases_of(s.engine.run(locate_steps(s.cfg, low, high, extra)))
+        scan = dict(sorted(scan.items()))
+    if extra:
+        s.log(f"coarse scan: after {MAX_SCAN_EXTRA} extra grays the fringe phase still moves more than π/2 around "
+              f"grays {', '.join(map(str, extra))}; the sign probe's staircase may miss its phase steps")
+    return list(scan), list(scan.values())
 
 
 def get_ready(s: Session, low: int, high: int) -> int:

@@ -176,13 +176,14 @@ def exposure_steps(cfg, exposure_s: float, low_gray: int, high_gray: int, target
 LOCATE_GRAYS = 8
 
 
-def locate_steps(cfg, low: int, high: int):
-    """Show LOCATE_GRAYS mirror grays spread over the panel's range with the grating pair; return their Measurements
-    (images kept): the band is where fringes move with the mirror gray, and their phases give a first coarse curve."""
-    gmax = cfg.gray_max
+def locate_steps(cfg, low: int, high: int, grays=None):
+    """Show ``grays`` (default: LOCATE_GRAYS mirror grays spread over the panel's range) with the grating pair;
+    return their Measurements (images kept): the band is where fringes move with the mirror gray, and their phases
+    give a first coarse curve."""
+    if grays is None:
+        grays = [round(i * cfg.gray_max / (LOCATE_GRAYS - 1)) for i in range(LOCATE_GRAYS)]
     measurements = []
-    for i in range(LOCATE_GRAYS):
-        gray = round(i * gmax / (LOCATE_GRAYS - 1))
+    for gray in grays:
         yield ShowSplit(gray, low, high)
         yield Settle(cfg.sweep.settle_s)
         measurements.append((yield Grab(1, "locate", gray, wait=True)))
