@@ -56,12 +56,13 @@ def measure(cfg, folder: Path) -> dict:
     off, _ = curve_from_frames(read_frames_csv(run / "frames.csv"), cfg.sweep.reference_gray, info, cyclic=False)
     return {"on": summary["truth"], "off": agreement(off.gray, off.phase_rad, off.std_rad, tg, tp).summary(),
             "cyclic": summary.get("cyclic"), "scale": (summary.get("drift") or {}).get("scale_span"),
-            "direction": summary.get("direction"), "basis": summary.get("direction_basis")}
+            "direction": summary.get("direction"), "basis": summary.get("direction_basis"),
+            "frames": (info.get("auto_frames") or {}).get("per_level", cfg.sweep.frames_per_level)}
 
 
 def run(count: int = variants.COUNT) -> list[tuple[str, dict]]:
     head = (f"{'bench':<42}{'rms mrad':>9}{'worst':>8}{'chi2/lv':>9}{'in 2σ':>7}{'leak |L|/a':>11}"
-            f"{'off mrad':>9}{'on mrad':>8}{'sign':>9}  ok")
+            f"{'off mrad':>9}{'on mrad':>8}{'sign':>9}{'frames':>7}  ok")
     print(head)
     rows = []
     for label, cfg in benches(count):
@@ -77,10 +78,12 @@ def run(count: int = variants.COUNT) -> list[tuple[str, dict]]:
         print(f"{label:<42}{1e3 * on['rms_error_rad']:>9.2f}{1e3 * on['worst_error_rad']:>8.2f}"
               f"{on['chi2_per_level']:>9.2f}{100 * on['within_2sigma']:>6.0f}%"
               f"{c.get('ratio', float('nan')):>11.4f}{1e3 * off['rms_error_rad']:>9.2f}"
-              f"{1e3 * on['rms_error_rad']:>8.2f}{r['direction']:>9}  {'yes' if ok else 'NO'}", flush=True)
+              f"{1e3 * on['rms_error_rad']:>8.2f}{r['direction']:>9}{r['frames']:>7}  {'yes' if ok else 'NO'}",
+              flush=True)
     print(f"  targets: <= {1e3 * TARGET_RMS_RAD:g} mrad RMS, >= {100 * TARGET_WITHIN:g} % within 2σ, chi-square per "
           f"level in [{TARGET_CHI2[0]}, {TARGET_CHI2[1]}]; 'off'/'on': RMS error vs truth with the cyclic correction "
-          "off and on; every variant has a 0.5 % cover-glass ghost and 5 K of warming during the sweep")
+          "off and on; frames: per level, as the scatter probe chose them (sweep.frames_per_level 'auto'); every "
+          "variant has a 0.5 % cover-glass ghost and about 5 K of warming during the sweep, its levels shuffled")
     return rows
 
 

@@ -92,7 +92,8 @@ def test_a_full_disk_stops_the_run_resumably_and_records_only_what_was_written(b
 
 def test_a_second_writer_is_refused_and_the_first_goes_on(tmp_path):
     folder, events = tmp_path / "run", tmp_path / "events"
-    config = small_config_file(tmp_path)  # every gray level: long enough to try twice while it runs
+    # every gray level in real time (about 18 s): long enough to try twice while it runs, however fast the machine
+    config = small_config_file(tmp_path, **{"simulator.timing.realtime": True, "sweep.settle_s": 0.05})
     first = start("sweep", "--sim", "--config", config, "--pair", "0:80", "--out", folder, "--events", events,
                   cwd=tmp_path)
     wait_for_stage(events, first, "sweep")

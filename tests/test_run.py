@@ -45,7 +45,7 @@ def config_file(tmp_path, text, name="bench.toml"):
     '[pattern]\ngrating_high = 96\n[sweep]\nlevels = [' + ", ".join(map(str, range(0, 256, 3))) + ", 255]\n",
     '[simulator.response]\ncell_gap_um = 5.8\n[sweep]\nlevels = [' + ", ".join(map(str, range(0, 256, 3))) + ", 255]\n",
 ], ids=["default-1064nm", "780nm", "4pi-panel"])
-@pytest.mark.timeout(600)  # the demo bench is the realistic one: every non-ideality on, about 2.5 min of CPU
+@pytest.mark.timeout(1200)  # the demo bench is the realistic one: every non-ideality on, 3-9 min on two busy cores
 def test_run_recovers_the_true_curve_and_tunes_a_pi_step(tmp_path, capsys, extra):
     """The main job on the simulator: the curve within 0.03 rad rms of the truth and a tuned pair whose true step
     is within 0.15 rad of pi (the best pair of a binary grating is a pi step, common practice). The demo bench
