@@ -14,7 +14,7 @@ import numpy as np
 
 from analysis.config import Config, load_config, replace
 from configs import HERE
-from rig.run.stages import AUTO_FRAMES
+from rig.run.stages import AUTO_FRAMES, with_frames
 from rig.run.steps import run_seconds
 
 COUNT = 8                   # variants in the benchmark
@@ -55,9 +55,7 @@ def expected_frames(cfg: Config) -> int:
 def warming_rate_k_per_min(cfg: Config, kelvin: float = WARMING_K) -> float:
     """The steady ramp (K/min) that warms the panel by about ``kelvin`` over the sweep (its duration at the frame
     rate, with the frames per level 'auto' is expected to choose)."""
-    n = expected_frames(cfg)
-    resolved = replace(cfg, **{"sweep.frames_per_level": n,
-                               "sweep.reference_frames": max(cfg.sweep.reference_frames, n)})
+    resolved = with_frames(cfg, expected_frames(cfg))
     sweep_s = run_seconds(resolved, cfg.simulator.timing.frame_rate_hz)
     return kelvin / (sweep_s / 60.0)
 

@@ -220,7 +220,7 @@ def choose_frames(s: Session, low: int, high: int) -> None:
     their pixel noise (vibration, flicker) sets the frames per level that bring a level's standard error to
     ``sweep.target_std_mrad`` (analysis.curve.frames_for_target), within AUTO_FRAMES.
 
-    Writes ``frames`` (the choice and the figures behind it) into run.json; returns nothing.
+    Writes ``auto_frames`` (the choice and the figures behind it) into run.json; returns nothing.
     """
     cfg = s.cfg
     if cfg.sweep.frames_per_level != "auto" or "auto_frames" in s.folder.info:
@@ -232,8 +232,10 @@ def choose_frames(s: Session, low: int, high: int) -> None:
             if r.phase_rad is not None and r.phase_std_rad is not None]
     target = cfg.sweep.target_std_mrad * 1e-3
     try:
+        if not rows:
+            raise CurveError("no frame of the probe has a fringe phase")
         n, scatter, pixel = frames_for_target(*zip(*rows), target, *AUTO_FRAMES)
-    except (CurveError, TypeError):  # TypeError: no frame with a phase at all
+    except CurveError:
         raise StepError("frames: the scatter probe measured too few fringe phases; check the fringes with "
                         "`fringecal align`, or set sweep.frames_per_level to a number") from None
     s.folder.update(auto_frames={"per_level": n, "frame_scatter_rad": scatter, "pixel_noise_rad": pixel,
@@ -250,7 +252,11 @@ def sweep_config(cfg, info: dict):
         return cfg
     if "auto_frames" not in info:
         raise StepError("frames: sweep.frames_per_level is 'auto' but the scatter probe has not chosen a number")
-    n = int(info["auto_frames"]["per_level"])
+    return with_frames(cfg, int(info["auto_frames"]["per_level"]))
+
+
+def with_frames(cfg, n: int):
+    """``cfg`` sweeping ``n`` frames a level, its drift-reference visits at least as many."""
     return replace(cfg, **{"sweep.frames_per_level": n, "sweep.reference_frames": max(cfg.sweep.reference_frames, n)})
 
 
