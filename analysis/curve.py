@@ -12,7 +12,9 @@ so the model has only as many terms as the visits show to be there.
 Each level's standard uncertainty is a budget after the GUM (JCGM 100:2008), components combined in quadrature:
 pixel noise (the estimator's stated std), frame scatter beyond it (type A, pooled over the levels), the drift
 model's uncertainty, the cyclic correction's uncertainty (or the cyclic error left in when it is not applied), and
-a systematic floor from the distortion the circle model leaves.
+a systematic floor from the distortion the circle model leaves. Where the levels lie closer to a smooth curve than
+independent frames would put them (periodic flicker averages out of back-to-back frames), the frame scatter takes
+only the share they show.
 """
 
 from __future__ import annotations
@@ -27,6 +29,7 @@ from analysis.cyclic import MIN_ARC_RAD, LeakFit, fit_leak
 
 MAX_DRIFT_DEGREE = 3     # drift is modelled as a polynomial in time of at most this degree
 DRIFT_TERM_CHI2 = 9.0    # a higher drift degree is kept only if it lowers chi-square this much (a 3-sigma term)
+SCALE_EXTRA_DEGREES = 1  # the scale drift takes this many more powers of time than its visits show (see fit_drift)
 OUTLIER_SIGMAS = 5.0     # frames or levels this many robust standard deviations off are rejected
 SMOOTH_KNOT_SPACING = 16  # gray levels between knots of the monotone smooth fit
 DIP_SIGMAS = 3.0         # a fall against the curve's direction this many combined standard errors deep is a dip
@@ -36,6 +39,7 @@ SCALE_SIGMAS = 3.0       # a scale drift seen this many standard errors from zer
 ROUGHNESS_HALF_WINDOW = 6  # levels either side of a level whose cubic predicts it, for the levels' excess scatter
 ROUGHNESS_MIN_LEVELS = 64  # levels a curve needs before its roughness is judged ...
 ROUGHNESS_MAX_STEP = 4     # ... at most this many grays apart (median): sparse levels bend beyond a cubic's reach
+ORDERED_RHO = 0.5          # levels whose times follow gray this closely (|Spearman rho|) make an ordered sweep
 DIRECTIONS = {"rising": 1, "falling": -1}
 PHASE_CONVENTION = ("phase is the delay the panel adds to the reflected field (the field is multiplied by "
                     "exp(+i phi(g)), waves written exp(i(k.r - w t))), relative to the reference gray")
@@ -86,18 +90,18 @@ class DriftModel:
         at = self.t0_s if self.scale_at_s is None else self.scale_at_s
         return float(np.polyval(self.scale_coefficients, at - self.t0_s))
 
-    def std_rad(self, t_s: np.ndarray, phase_rad: np.ndarray | float = 0.0) -> np.ndarray:
-        """Standard uncertainty (rad) of the drift correction at times ``t_s`` (s) for phases ``phase_rad``.
+    def sensitivity(self, t_s: np.ndarray, phase_rad: np.ndarray | float = 0.0) -> tuple[np.ndarray, np.ndarray]:
+        """The drift-corrected phases' derivatives with respect to the model's coefficients at times ``t_s`` (s)
+        for phases ``phase_rad`` (one row per time), and the coefficients' covariance (rad^2): the model's errors
+        at any two times are correlated through it.
 
-        The corrected phase is (measured - p(t)) / (1 + s(t)); this is its uncertainty from the visits' noise
-        through the model's covariance (a piston only: that of p(t)).
+        The corrected phase is (measured - p(t)) / (1 + s(t)); with a piston only, -1 times p's powers of time.
         """
         t = np.atleast_1d(np.asarray(t_s, dtype=float)) - self.t0_s
         piston = np.vander(t, len(self.coefficients))
         if not self.scale_coefficients:
-            if not self.covariance:
-                return np.zeros(t.size)
-            return np.sqrt(np.maximum(np.einsum("ij,jk,ik->i", piston, np.asarray(self.covariance), piston), 0.0))
+            cov = np.asarray(self.covariance) if self.covariance else np.zeros((piston.shape[1],) * 2)
+            return -piston, cov
         phase = np.broadcast_to(np.asarray(phase_rad, dtype=float), t.shape)
         q = np.asarray(self.scale_coefficients)
         powers = np.vander(t, q.size)
@@ -107,7 +111,12 @@ class DriftModel:
         one_plus_s = (powers @ q) / b0
         ds_dq = powers / b0 - np.outer(powers @ q, at) / b0**2
         jac = np.column_stack([-piston / one_plus_s[:, None], -(phase / one_plus_s)[:, None] * ds_dq])
-        cov = np.asarray(self.joint_covariance)
+        return jac, np.asarray(self.joint_covariance)
+
+    def std_rad(self, t_s: np.ndarray, phase_rad: np.ndarray | float = 0.0) -> np.ndarray:
+        """Standard uncertainty (rad) of the drift correction at times ``t_s`` (s) for phases ``phase_rad``, from
+        the visits' noise through the model's covariance (see ``sensitivity``)."""
+        jac, cov = self.sensitivity(t_s, phase_rad)
         return np.sqrt(np.maximum(np.einsum("ij,jk,ik->i", jac, cov, jac), 0.0))
 
     def summary(self, time_base: str = "time_s") -> dict:
@@ -166,7 +175,8 @@ class UncertaintyBudget:
     ``drift_rad`` (the drift model's, from the visits' noise). Type B: ``cyclic_rad`` (the cyclic correction's
     uncertainty, or the cyclic error left in where it is not applied), ``floor_rad`` (distortion the leak model
     leaves, from the radial residual's harmonics). ``excess_scatter_rad`` is the pooled per-frame scatter beyond
-    the stated std, ``scatter_dof`` its degrees of freedom, ``own_scatter_grays`` the levels using their own.
+    the stated std, ``scatter_dof`` its degrees of freedom, ``own_scatter_grays`` the levels using their own,
+    ``scatter_share`` the share of the frame scatter the levels' spread supports (see scatter_share).
     """
 
     gray: np.ndarray
@@ -178,6 +188,7 @@ class UncertaintyBudget:
     excess_scatter_rad: float = 0.0
     scatter_dof: int = 0
     own_scatter_grays: tuple[int, ...] = ()
+    scatter_share: float = 1.0  # of the frames' scatter over their count, as the levels' spread supports it
 
     COMPONENTS = ("pixel_noise_rad", "frame_scatter_rad", "drift_rad", "cyclic_rad", "floor_rad")
 
@@ -189,7 +200,8 @@ class UncertaintyBudget:
     def select(self, keep: np.ndarray) -> UncertaintyBudget:
         """The budget of the levels where ``keep`` is true."""
         return UncertaintyBudget(self.gray[keep], *(getattr(self, n)[keep] for n in self.COMPONENTS),
-                                 self.excess_scatter_rad, self.scatter_dof, self.own_scatter_grays)
+                                 self.excess_scatter_rad, self.scatter_dof, self.own_scatter_grays,
+                                 self.scatter_share)
 
     def summary(self) -> dict:
         """JSON-ready budget: each component's median and largest value over the levels (rad), and the pooling."""
@@ -201,7 +213,7 @@ class UncertaintyBudget:
         return {"method": "GUM (JCGM 100:2008): standard uncertainties combined in quadrature", "components": parts,
                 "combined_median_rad": float(np.median(combined)), "combined_max_rad": float(np.max(combined)),
                 "excess_frame_scatter_rad": self.excess_scatter_rad, "scatter_dof": self.scatter_dof,
-                "own_scatter_grays": list(self.own_scatter_grays)}
+                "own_scatter_grays": list(self.own_scatter_grays), "frame_scatter_share": self.scatter_share}
 
     def rows(self) -> list[dict]:
         """One JSON-ready dict per level: gray and each component (rad)."""
@@ -288,11 +300,16 @@ def unwrap_levels(gray: np.ndarray, phase_rad: np.ndarray, history: int = 4) -> 
     return out
 
 
-def _visit_means(time_s, phase_rad, std_rad, visit):
-    """Mean time (s), wrapped mean phase (rad) and its error (rad) of each visit, in visit order."""
+def _visit_means(time_s, phase_rad, std_rad, visit, pooled=False):
+    """Mean time (s), wrapped mean phase (rad) and its error (rad) of each visit, in visit order. ``pooled``: the
+    frames' stds already hold the frames' scatter, pooled over the sweep; a visit's own spread is not consulted."""
     visits = np.unique(visit)
     t = np.array([time_s[visit == v].mean() for v in visits])
-    means = [circular_mean(phase_rad[visit == v], std_rad[visit == v]) for v in visits]
+    if pooled:
+        means = [(float(np.angle(np.mean(np.exp(1j * phase_rad[visit == v])))),
+                  math.sqrt(float(np.mean(std_rad[visit == v] ** 2)) / np.sum(visit == v))) for v in visits]
+    else:
+        means = [circular_mean(phase_rad[visit == v], std_rad[visit == v]) for v in visits]
     return t, np.array([m for m, _ in means]), np.array([max(s, 1e-9) for _, s in means])
 
 
@@ -300,7 +317,8 @@ def _polyfit_select(x, y, err, blocks):
     """Weighted least squares of y on polynomial blocks in x, each block's degree raised while it pays.
 
     ``blocks`` is a list of row masks: block k adds powers of x on its rows. Degrees start at 0 and the block whose
-    next power lowers chi-square most gets it, while that lowers it by DRIFT_TERM_CHI2 and terms stay below rows.
+    next power lowers chi-square most gets it, while that lowers it by DRIFT_TERM_CHI2 and terms stay below rows;
+    a second block (the scale drift) then takes SCALE_EXTRA_DEGREES more powers where rows allow (see fit_drift).
     Returns (degrees, coefficients per block highest first, covariance, chi2), x already scaled.
     """
     def fit(degrees):
@@ -328,36 +346,48 @@ def _polyfit_select(x, y, err, blocks):
         if best[2] - chi2 < DRIFT_TERM_CHI2:
             break
         best, degrees = (coeffs, cov, chi2), trial_deg
+    if len(blocks) == 2:  # the scale's extra powers, as far as its visits and the rows allow
+        extra = min(degrees[1] + SCALE_EXTRA_DEGREES, MAX_DRIFT_DEGREE, int(blocks[1].sum()) - 1,
+                    x.size - len(blocks) - degrees[0]) - degrees[1]
+        if extra > 0:
+            degrees = [degrees[0], degrees[1] + extra]
+            best = fit(degrees)
     return degrees, *best
 
 
-def fit_drift(time_s: np.ndarray, phase_rad: np.ndarray, std_rad: np.ndarray, visit: np.ndarray) -> DriftModel:
+def fit_drift(time_s: np.ndarray, phase_rad: np.ndarray, std_rad: np.ndarray, visit: np.ndarray,
+              pooled: bool = False) -> DriftModel:
     """Piston drift polynomial through reference frames (time, wrapped phase, std, visit number).
 
     Frames of one visit are averaged first; visits are unwrapped in time order. The degree starts at 0 and goes up
     while one more power lowers the visits' weighted chi-square by DRIFT_TERM_CHI2 or more, up to MAX_DRIFT_DEGREE
     (and the number of visits less one): a term the visits cannot show to be there only carries their noise into
-    the levels. The visits' uncertainties must be honest for this test; circular_mean never lets them fall below
-    the scatter of a visit's own frames.
+    the levels. The scale drift (fit_drift_scale) then takes SCALE_EXTRA_DEGREES more: a warming panel's scale
+    bends in time (the order parameter's law is not linear) by less than its visits can show, and the line's bias
+    rescales every level at once, unstated, where the extra power only widens the stated std (model selection
+    bias; the extra term's noise is in the covariance). The visits' uncertainties must be honest for this test;
+    circular_mean never lets them fall below the scatter of a visit's own frames, unless ``pooled`` says that the
+    frames' ``std_rad`` already holds their scatter, pooled over the sweep (phase_curve's; a few frames' own
+    spread is a poor estimate of it, and taking the larger of the two overstates it).
     """
     t, phi, err = _visit_means(np.asarray(time_s, float), np.asarray(phase_rad, float), np.asarray(std_rad, float),
-                               np.asarray(visit))
+                               np.asarray(visit), pooled)
     return _drift_model(t, np.unwrap(phi), err, np.zeros(t.size, bool), None)
 
 
 def fit_drift_scale(time_s, phase_rad, std_rad, visit, is_scale, scale_phase_rad: float,
-                    scale_gray: int) -> DriftModel:
+                    scale_gray: int, pooled: bool = False) -> DriftModel:
     """Piston and scale drift through visits of two reference grays (time, wrapped phase, std, visit, which gray).
 
     ``is_scale`` marks frames of the second reference gray, ``scale_phase_rad`` an estimate of its phase above the
     first (from the levels, to pick its 2 pi branch). The first gray's visits give p(t); the second's give
     p(t) + q(t), q(t) = (1 + s(t)) phi(scale_gray); both polynomials are fitted together, each with the degree its
-    visits show (see fit_drift).
+    visits show (see fit_drift, also for ``pooled``).
     """
     time_s, phase_rad, std_rad = (np.asarray(a, float) for a in (time_s, phase_rad, std_rad))
     visit, is_scale = np.asarray(visit), np.asarray(is_scale, bool)
-    ta, pa, ea = _visit_means(time_s[~is_scale], phase_rad[~is_scale], std_rad[~is_scale], visit[~is_scale])
-    tb, pb, eb = _visit_means(time_s[is_scale], phase_rad[is_scale], std_rad[is_scale], visit[is_scale])
+    ta, pa, ea = _visit_means(time_s[~is_scale], phase_rad[~is_scale], std_rad[~is_scale], visit[~is_scale], pooled)
+    tb, pb, eb = _visit_means(time_s[is_scale], phase_rad[is_scale], std_rad[is_scale], visit[is_scale], pooled)
     pa = np.unwrap(pa)
     piston = _drift_model(ta, pa, ea, np.zeros(ta.size, bool), None)
     base = piston(tb) + scale_phase_rad
@@ -558,11 +588,13 @@ def _frame_scatter(lv: _Levels) -> tuple[np.ndarray, np.ndarray, float, int, np.
     The frames' spread beyond their stated std (vibration, flicker) is pooled over levels with two or more frames
     (JCGM 100:2008, 4.2.4): four frames alone give a spread uncertain by a factor of two. Each level takes the pool
     of its SCATTER_NEIGHBOURS neighbours either side, since the spread changes with gray (flicker follows the
-    slope of phase against drive voltage; vibration does not change). A level whose own spread exceeds the
-    all-level pool at the OWN_SCATTER_P level of an F test uses its own. Returns pixel, scatter, the all-level
-    pooled excess per frame (rad), its degrees of freedom and the levels on their own spread.
+    slope of phase against drive voltage; vibration does not change). A level whose own spread exceeds the pool
+    of its neighbours (itself left out) at the OWN_SCATTER_P level of an F test uses its own. Returns pixel,
+    scatter, the all-level pooled excess per frame (rad), its degrees of freedom and the levels on their own spread.
+    The scatter over the frame count assumes frames independent; scatter_share tests that on the levels.
     """
     multi = lv.n >= 2
+    near = lambda v: np.convolve(v, np.ones(2 * SCATTER_NEIGHBOURS + 1))[SCATTER_NEIGHBOURS:][:v.size]  # noqa: E731
     own = np.zeros(lv.n.size, dtype=bool)
     excess, dof = 0.0, 0
     for _ in range(5):  # levels on their own spread leave the pool, which may free others
@@ -571,15 +603,20 @@ def _frame_scatter(lv: _Levels) -> tuple[np.ndarray, np.ndarray, float, int, np.
         if not dof:
             break
         excess = max(float(np.sum((lv.n[pool] - 1) * (lv.own_var[pool] - lv.stated_var[pool]))) / dof, 0.0)
-        limit = stats.f.isf(OWN_SCATTER_P, np.maximum(lv.n - 1, 1), dof)
-        flagged = multi & (np.nan_to_num(lv.own_var) > (lv.stated_var + excess) * limit)
+        dof_each = np.where(pool, lv.n - 1, 0).astype(float)
+        sum_each = np.where(pool, (lv.n - 1) * (np.nan_to_num(lv.own_var) - lv.stated_var), 0.0)
+        # each level against its neighbours' pool (itself left out), not the whole curve's: flicker's gray
+        # dependence would otherwise send whole stretches onto their own, noisier and selected-high spreads
+        others = near(dof_each) - dof_each
+        local = np.where(others > 0, (near(sum_each) - sum_each) / np.maximum(others, 1), excess)
+        limit = stats.f.isf(OWN_SCATTER_P, np.maximum(lv.n - 1, 1), np.where(others > 0, others, dof))
+        flagged = multi & (np.nan_to_num(lv.own_var) > (lv.stated_var + np.maximum(local, 0.0)) * limit)
         if np.array_equal(flagged, own):
             break
         own = flagged
     pool = multi & ~own
     dof_each = np.where(pool, lv.n - 1, 0).astype(float)
     sum_each = np.where(pool, (lv.n - 1) * (np.nan_to_num(lv.own_var) - lv.stated_var), 0.0)
-    near = lambda v: np.convolve(v, np.ones(2 * SCATTER_NEIGHBOURS + 1))[SCATTER_NEIGHBOURS:][:v.size]  # noqa: E731
     local_dof = near(dof_each)
     local = np.where(local_dof > 0, near(sum_each) / np.maximum(local_dof, 1), excess)
     frame_var = np.where(own, lv.own_var, lv.stated_var + np.maximum(local, 0.0))
@@ -604,6 +641,22 @@ def estimator_floor_rad(gray, difference_rad) -> float:
     return math.sqrt(max(excess, 0.0))
 
 
+def _dense(g: np.ndarray) -> bool:
+    """Whether levels at grays ``g`` are many and close enough for their roughness to be judged."""
+    return g.size >= ROUGHNESS_MIN_LEVELS and float(np.median(np.diff(g))) <= ROUGHNESS_MAX_STEP
+
+
+def _leave_one_out(g: np.ndarray, sig: np.ndarray):
+    """For each level i: the indices of its ROUGHNESS_HALF_WINDOW neighbours either side and the weights that
+    make a cubic's value at i, fitted to them with standard errors ``sig``."""
+    n, h = g.size, ROUGHNESS_HALF_WINDOW
+    for i in range(n):
+        lo, hi = max(0, min(i - h, n - 2 * h - 1)), min(n, max(i + h + 1, 2 * h + 1))
+        idx = np.r_[lo:i, i + 1:hi]
+        x = (g[idx] - g[i]) / max(float(np.ptp(g[idx])), 1.0)
+        yield i, idx, np.linalg.pinv(np.vander(x, 4) / sig[idx, None])[-1] / sig[idx]
+
+
 def roughness_excess_rad(gray, phase_rad, std_rad) -> float:
     """Standard deviation (rad) of errors the levels share no frame with, from the curve's roughness (type A).
 
@@ -618,27 +671,61 @@ def roughness_excess_rad(gray, phase_rad, std_rad) -> float:
     """
     g, phi, sig = (np.asarray(v, dtype=float) for v in (gray, phase_rad, std_rad))
     n = g.size
-    if n < ROUGHNESS_MIN_LEVELS or np.median(np.diff(g)) > ROUGHNESS_MAX_STEP:
+    if not _dense(g):
         return 0.0
-    h = ROUGHNESS_HALF_WINDOW
     r2, v, q = np.empty(n), np.empty(n), np.empty(n)
-    for i in range(n):
-        lo, hi = max(0, min(i - h, n - 2 * h - 1)), min(n, max(i + h + 1, 2 * h + 1))
-        idx = np.r_[lo:i, i + 1:hi]
-        x = (g[idx] - g[i]) / max(float(np.ptp(g[idx])), 1.0)
-        design = np.vander(x, 4) / sig[idx, None]
-        pinv = np.linalg.pinv(design)
-        weights = pinv[-1] / sig[idx]  # the cubic's value at x = 0 as weights on the neighbours' phases
-        r2[i] = (phi[i] - weights @ phi[idx]) ** 2
-        v[i] = sig[i] ** 2 + float(np.sum(weights**2 * sig[idx] ** 2))
-        q[i] = float(np.sum(weights**2))
-    chi2 = float(np.sum(r2 / v))
-    if chi2 <= n + 3 * math.sqrt(2 * n):
+    for i, idx, w in _leave_one_out(g, sig):
+        r2[i] = (phi[i] - w @ phi[idx]) ** 2
+        v[i] = sig[i] ** 2 + float(np.sum(w**2 * sig[idx] ** 2))
+        q[i] = float(np.sum(w**2))
+    if np.sum(r2 / v) <= n + 3 * math.sqrt(2 * n):
         return 0.0
     return math.sqrt(max(float(np.mean(r2 - v)), 0.0) / float(np.mean(1 + q)))
 
 
-def _remove_drift(gray, phase, std, time_s, contrast, cyclic, reference_gray, scale_gray, warnings, scale_at_s=None):
+def scatter_share(gray, phase_rad, std_rad, scatter_rad, shared=None) -> float:
+    """The share [0, 1] of the frame-scatter variance ``scatter_rad`` (part of ``std_rad``) that the levels'
+    spread about a smooth curve supports.
+
+    A level's frame scatter over its frame count assumes the frames independent. Flicker at the panel's refresh
+    beating with the camera's frame rate is periodic instead: back-to-back frames sample its cycle evenly and their
+    mean cancels most of it, so the levels lie closer to a smooth curve than their stated stds say. With the
+    leave-one-out cubic of roughness_excess_rad, mean(r_i^2) = mean(a_i) + share * mean(b_i), a_i and b_i the
+    other and the scatter parts of r_i's variance, gives the share (the Birge ratio's remedy, below one, for the
+    component whose independence is in doubt), raised by its standard error. One unless the residuals' chi-square
+    falls short of its expectation by three standard deviations, or the curve is sparse. ``std_rad`` holds the
+    errors independent from level to level; ``shared`` = (J, C), errors correlated across levels (the drift
+    model's: derivatives, one row per level, and covariance), of which the residuals carry only what differs.
+    """
+    g, phi, sig, sc = (np.asarray(v, dtype=float) for v in (gray, phase_rad, std_rad, scatter_rad))
+    n = g.size
+    if not _dense(g) or not np.any(sc > 0):
+        return 1.0
+    r2, a, b = np.empty(n), np.empty(n), np.empty(n)
+    for i, idx, w in _leave_one_out(g, sig):
+        r2[i] = (phi[i] - w @ phi[idx]) ** 2
+        b[i] = sc[i] ** 2 + float(np.sum(w**2 * sc[idx] ** 2))
+        a[i] = sig[i] ** 2 + float(np.sum(w**2 * sig[idx] ** 2)) - b[i]
+        if shared is not None:
+            row = shared[0][i] - w @ shared[0][idx]
+            a[i] += float(row @ shared[1] @ row)
+    if np.sum(r2 / (a + b)) >= n - 3 * math.sqrt(2 * n):
+        return 1.0
+    share = (float(np.mean(r2 - a)) + float(np.std(r2)) / math.sqrt(n)) / float(np.mean(b))
+    return float(min(max(share, 0.0), 1.0))
+
+
+def time_follows_gray(gray, time_s) -> bool:
+    """Whether levels were measured in an order tied to gray (ascending or descending; |Spearman rho| of their
+    times against gray at least ORDERED_RHO), so that slow changes in time look like the curve's shape."""
+    g, t = np.asarray(gray, dtype=float), np.asarray(time_s, dtype=float)
+    if g.size < 3 or np.ptp(t) == 0:
+        return False
+    return bool(abs(stats.spearmanr(g, t).statistic) >= ORDERED_RHO)
+
+
+def _remove_drift(gray, phase, std, time_s, contrast, cyclic, reference_gray, scale_gray, warnings, scale_at_s=None,
+                  share=1.0):
     """Fit the drift model to the reference visits and return it (or None) with the frames' corrected phases.
 
     With a second reference gray the scale acts on unwrapped phase: each frame takes the 2 pi branch of its level
@@ -650,12 +737,13 @@ def _remove_drift(gray, phase, std, time_s, contrast, cyclic, reference_gray, sc
     visit = _visits(is_ref, order)
     # A visit of two frames can show almost no scatter by chance: each frame's error takes the frames' pooled
     # spread beyond their stated std (vibration, flicker), from every run of back-to-back frames of one gray.
-    std = np.sqrt(std**2 + _pooled_excess(gray, phase, std, order))
+    # (``share``: of that spread, what the level means bear out; see scatter_share)
+    std = np.sqrt(std**2 + share * _pooled_excess(gray, phase, std, order))
     if len(np.unique(visit[is_ref])) < 2:
         if scale_gray is not None:
             warnings.append(f"reference gray {reference_gray} was measured in fewer than two visits: no drift model")
         return None, phase
-    drift = fit_drift(time_s[is_ref], phase[is_ref], std[is_ref], visit[is_ref])
+    drift = fit_drift(time_s[is_ref], phase[is_ref], std[is_ref], visit[is_ref], pooled=True)
     piston_only = np.angle(np.exp(1j * (phase - drift(time_s))))
     if scale_gray is None:
         return drift, piston_only
@@ -669,7 +757,7 @@ def _remove_drift(gray, phase, std, time_s, contrast, cyclic, reference_gray, sc
     rough = rough - rough[first.gray == reference_gray][0]
     sel = is_ref | is_sc
     drift = fit_drift_scale(time_s[sel], phase[sel], std[sel], np.where(is_sc, visit_sc, visit)[sel], is_sc[sel],
-                            float(rough[first.gray == scale_gray][0]), scale_gray)
+                            float(rough[first.gray == scale_gray][0]), scale_gray, pooled=True)
     if scale_at_s is not None:
         drift = replace(drift, scale_at_s=float(scale_at_s))
     branch = rough[np.searchsorted(first.gray, gray)]
@@ -719,7 +807,8 @@ def frames_for_target(group, phase_rad, std_rad, target_rad: float, fewest: int 
 def phase_curve(gray, phase_rad, std_rad, time_s=None, contrast=None, reference_gray: int = 0,
                 sign: int | None = None, smooth: bool = False, *, direction: str = "unknown",
                 direction_basis: str | None = None, amplitude=None, scale_gray: int | None = None,
-                check_phase_rad=None, scale_at_s: float | None = None, extra_leak_terms: int = 0) -> PhaseCurve:
+                check_phase_rad=None, scale_at_s: float | None = None, extra_leak_terms: int = 0,
+                share: float | None = None) -> PhaseCurve:
     """Build the phase curve from per-frame results in acquisition order.
 
     ``time_s`` defaults to the acquisition index. ``direction`` ("rising", "falling") is how the panel's phase runs
@@ -739,11 +828,16 @@ def phase_curve(gray, phase_rad, std_rad, time_s=None, contrast=None, reference_
     (default: the first reference visit). ``extra_leak_terms`` gives the leak's motion in time that many more
     powers than the data select (analysis.cyclic.fit_leak).
 
-    Where a leak correction is applied to timed frames, the whole curve is made again with one more power of time
-    in the leak's motion, and each level's difference between the two (common piston removed, less the noise
-    variance the extra term adds) joins the cyclic component as a type-B model uncertainty (GUM 4.3): the motion
-    trades against the curve's shape in a sweep in gray order (analysis.cyclic), and its error reaches every level
-    through the drift references as well.
+    Where a leak correction is applied to frames of an ordered sweep (time_follows_gray), the whole curve is made
+    again with one more power of time in the leak's motion, and each level's difference between the two (common
+    piston removed, less the noise variance the extra term adds) joins the cyclic component as a type-B model
+    uncertainty (GUM 4.3): the motion trades against the curve's shape when time follows gray (analysis.cyclic),
+    and its error reaches every level through the drift references as well. A shuffled sweep separates the two,
+    and the leak fit's own test of its terms stands.
+
+    The frame scatter's share that the levels' spread supports (scatter_share) scales it; below one, the curve is
+    made again with it (``share`` given), so that the drift visits' means take it too. The roughness beyond the
+    stated stds joins the floor (roughness_excess_rad).
     """
     given = dict(gray=gray, sign=sign)  # as the caller gave them, for the leak model's check
     gray = np.asarray(gray, dtype=int)
@@ -791,7 +885,7 @@ def phase_curve(gray, phase_rad, std_rad, time_s=None, contrast=None, reference_
                                 f"{leak.reason}; the error left in is carried in the uncertainty")
 
     drift, phase = _remove_drift(gray, phase, std, time_s, contrast, cyclic, reference_gray, scale_gray, warnings,
-                                 scale_at_s)
+                                 scale_at_s, 1.0 if share is None else share)
 
     lv = _level_stats(gray, phase, std, time_s, contrast, cyclic)
     pixel, scatter, excess, dof, own = _frame_scatter(lv)
@@ -826,7 +920,8 @@ def phase_curve(gray, phase_rad, std_rad, time_s=None, contrast=None, reference_
         basis = "given by the caller" if direction != "unknown" else "from the given sign" if sign_given else "assumed"
 
     cyclic_level = lv.cyclic_rad[level_ok]
-    if leak is not None and leak.applied and not extra_leak_terms:
+    ordered = time_follows_gray(levels, t_level)
+    if leak is not None and leak.applied and not extra_leak_terms and ordered:
         other = phase_curve(given["gray"], phase_rad, std_rad, time_s, contrast, reference_gray, given["sign"],
                             direction=direction, amplitude=amplitude, scale_gray=scale_gray, scale_at_s=scale_at_s,
                             extra_leak_terms=1)
@@ -843,11 +938,23 @@ def phase_curve(gray, phase_rad, std_rad, time_s=None, contrast=None, reference_
     if disagreement is not None:
         keep = lv.keep & np.isin(gray, levels)
         floor = math.hypot(floor, estimator_floor_rad(gray[keep], disagreement[keep]))
-    type_a_level = np.sqrt(pixel[level_ok] ** 2 + scatter[level_ok] ** 2 + drift_std**2 + cyclic_level**2)
+    pixel, scatter = pixel[level_ok], scatter[level_ok]
+    # the drift model's errors are partly common to all levels and, in an ordered sweep, smooth in gray: they
+    # enter the levels' spread about a smooth curve through their correlations
+    given_share = share
+    if share is None:
+        share = scatter_share(levels, curve, np.hypot(pixel, scatter), scatter,
+                              None if drift is None else drift.sensitivity(t_level, unwrapped))
+    if share < 1 and given_share is None:  # the drift visits' means take the share too
+        return phase_curve(given["gray"], phase_rad, std_rad, time_s, contrast, reference_gray, given["sign"], smooth,
+                           direction=direction, direction_basis=direction_basis, amplitude=amplitude,
+                           scale_gray=scale_gray, check_phase_rad=check_phase_rad, scale_at_s=scale_at_s,
+                           extra_leak_terms=extra_leak_terms, share=share)
+    scatter = scatter * math.sqrt(share)
+    type_a_level = np.sqrt(pixel**2 + scatter**2 + drift_std**2 + cyclic_level**2)
     floor = math.hypot(floor, roughness_excess_rad(levels, curve, np.sqrt(type_a_level**2 + floor**2)))
-    budget = UncertaintyBudget(levels, pixel[level_ok], scatter[level_ok], drift_std, cyclic_level,
-                               np.full(levels.size, floor), excess, dof,
-                               tuple(int(g) for g in lv.gray[own & level_ok]))
+    budget = UncertaintyBudget(levels, pixel, scatter, drift_std, cyclic_level, np.full(levels.size, floor), excess,
+                               dof, tuple(int(g) for g in lv.gray[own & level_ok]), share)
     errors = budget.combined_rad
     dips = find_dips(levels, curve, errors, run)
     for d in dips:

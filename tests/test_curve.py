@@ -1,5 +1,7 @@
 """Phase curve: unwrapping, drift removal, sign, outliers, smooth fit and invariances."""
 
+from dataclasses import replace
+
 import numpy as np
 import pytest
 from hypothesis import given, settings
@@ -7,7 +9,8 @@ from hypothesis import strategies as st
 
 from analysis.band import Band
 from analysis.carrier import Carrier
-from analysis.curve import CurveError, circular_mean, fit_drift, monotone_fit, phase_curve, unwrap_levels
+from analysis.curve import (CurveError, circular_mean, fit_drift, fit_drift_scale, monotone_fit, phase_curve,
+                            unwrap_levels)
 from analysis.fringe import carrier_lsq, lsq_model
 from synthetic import fringes
 
@@ -231,13 +234,15 @@ def monotone_truth(g):
 
 def bench_sweep(truth=panel_curve, frames=4, noise=0.002, vibration=0.0, piston=0.0, scale=0.0, leak=0.0,
                 scale_gray=None, order="ascending", seed=0, reference_every=12,
-                leak_turn=0.0):
+                leak_turn=0.0, flicker=0.0, flicker_cycles=0.22, scale_bend=0.0):
     """Frames of a sweep as complex fringe amplitudes: gray, wrapped phase, stated std, time, amplitude.
 
-    The fringe phase is -(1 + scale u) truth + piston u (u the sweep's fraction) plus vibration (rad per frame, not
-    in the stated std); the amplitude 1000 (1 + 0.1 g / 255) plus a leak of relative size ``leak``; complex noise
+    The fringe phase is -(1 + scale u + scale_bend u (u - 1)) truth + piston u (u the sweep's fraction) plus
+    vibration (rad per frame, not in the stated std); the amplitude 1000 (1 + 0.1 g / 255) plus a leak of relative size ``leak``; complex noise
     of ``noise`` relative to 1000 per component. References at gray 0 (and ``scale_gray``) every few levels. The
-    leak turns steadily by ``leak_turn`` rad over the sweep (a cover-glass ghost as the panel warms).
+    leak turns steadily by ``leak_turn`` rad over the sweep (a cover-glass ghost as the panel warms). ``flicker``
+    (rad) is a drive ripple that the camera samples at ``flicker_cycles`` of its cycle a frame (the refresh
+    aliased by the frame rate), not in the stated std either.
     """
     rng = np.random.default_rng(seed)
     levels = list(GRAYS) if order == "ascending" else list(rng.permutation(GRAYS))
@@ -250,7 +255,10 @@ def bench_sweep(truth=panel_curve, frames=4, noise=0.002, vibration=0.0, piston=
     grays = np.array(grays)
     t = 0.5 * np.arange(grays.size)
     u = t / t.max()
-    fringe = -(1 + scale * u) * truth(grays) + 0.4 + piston * u + rng.normal(0, vibration, grays.size)
+    fringe = -(1 + scale * u + scale_bend * u * (u - 1)) * truth(grays) + 0.4 + piston * u
+    fringe = fringe + rng.normal(0, vibration, grays.size)
+    if flicker:
+        fringe += flicker * np.sin(2 * np.pi * flicker_cycles * np.arange(grays.size) + rng.uniform(0, 2 * np.pi))
     z = (1000 * (1 + 0.1 * grays / 255) * np.exp(1j * fringe) + leak * 1000 * np.exp(1j * (rng.uniform(-3, 3) + leak_turn * u))
          + 1000 * noise * (rng.normal(0, 1, grays.size) + 1j * rng.normal(0, 1, grays.size)))
     return grays, np.angle(z), 1000 * noise / np.abs(z), t, np.abs(z)
@@ -267,8 +275,10 @@ def against_truth(curve, truth=panel_curve):
 def test_two_reference_grays_remove_piston_and_scale():
     """3 % scale drift and 1 rad piston over the sweep: with one reference gray the curve is ~0.1 rad off and its
     std claims ~1 mrad (chi-square per level in the thousands); with a second reference gray at 150 the error
-    comes down to the noise and the stated std holds (chi-square per level 0.4..2, >= 90 % within 2 sigma, over
-    4 seeds); the fitted scale change is 3 % within 0.3 %."""
+    comes down to the noise and the stated std holds (chi-square per level 0.3..2, >= 90 % within 2 sigma, over
+    4 seeds: 0.35..0.54; the drift model's errors are common to many levels of an ascending sweep, so one seed's
+    chi-square scatters widely, and the scale's extra power of time is noise here, stated); the fitted scale
+    change is 3 % within 0.3 %."""
     for seed in range(4):
         g, p, s, t, a = bench_sweep(piston=1.0, scale=0.03, seed=seed)
         one = phase_curve(g, p, s, t)
@@ -277,7 +287,7 @@ def test_two_reference_grays_remove_piston_and_scale():
         rms_one, chi_one, _ = against_truth(one)
         rms, chi, within = against_truth(two)
         assert rms_one > 0.05 and chi_one > 100
-        assert rms < 0.002 and 0.4 < chi < 2 and within >= 0.9
+        assert rms < 0.002 and 0.3 < chi < 2 and within >= 0.9
         assert two.drift.scale_gray == 150 and two.drift.scale_visits == 10
         assert two.drift.scale_span == pytest.approx(0.03, abs=0.003)
 
@@ -299,17 +309,71 @@ def test_frame_scatter_enters_the_budget():
     """0.05 rad of vibration, 4 frames per level, a stated std of 2 mrad per frame: the stated std alone is ~25x too
     small; the budget's pooled frame scatter brings the chi-square per level to 0.6..1.4 over 4 seeds (0.68..1.25
     over 8 seeds, mean 0.98, pooled over neighbouring levels, the drift visits taking it too), and its pooled
-    excess per frame is 0.05 rad within 10 %."""
+    excess per frame is 0.05 rad within 12 % (0.044..0.051 over the 4 seeds: levels on their own spread leave the
+    pool)."""
     for seed in range(4):
         g, p, s, t, a = bench_sweep(truth=monotone_truth, vibration=0.05, seed=seed)
         curve = phase_curve(g, p, s, t)
         rms, chi, within = against_truth(curve, monotone_truth)
         assert 0.6 < chi < 1.4 and within >= 0.9
-        assert curve.budget.excess_scatter_rad == pytest.approx(0.05, rel=0.1)
+        assert curve.budget.excess_scatter_rad == pytest.approx(0.05, rel=0.12)
         assert np.mean(((curve.phase_rad - monotone_truth(curve.gray)) / curve.budget.pixel_noise_rad) ** 2) > 100
         np.testing.assert_allclose(curve.std_rad, curve.budget.combined_rad)
+        assert curve.budget.scatter_share == 1.0  # independent frames: the levels' spread bears the scatter out
         assert set(curve.budget.summary()["components"]) == {"pixel_noise", "frame_scatter", "drift", "cyclic",
                                                              "floor"}
+
+
+def test_periodic_flicker_averages_out_of_the_level_means():
+    """A 30 mrad drive ripple the camera samples at 0.22 of its cycle a frame (a refresh aliased by the frame rate:
+    back-to-back frames walk through it evenly), 8 frames a level, shuffled: the frames scatter by 22 mrad, which
+    over 8 independent frames would be 7.8 mrad a level; their means cancel most of it. The levels' spread about a
+    smooth curve shows it: over 8 seeds the scatter share is 0.02..0.12 and the stated std holds (chi-square per
+    level 0.64..0.95, all levels within 2 sigma), where the independent-frames std gave 0.11..0.13."""
+    for seed in range(4):
+        g, p, s, t, a = bench_sweep(truth=monotone_truth, flicker=0.03, frames=8, order="shuffled", seed=seed)
+        curve = phase_curve(g, p, s, t)
+        budget = curve.budget
+        rms, chi, within = against_truth(curve, monotone_truth)
+        assert budget.scatter_share < 0.2 and 0.5 < chi < 1.5 and within >= 0.95
+        independent = np.hypot(curve.std_rad, budget.frame_scatter_rad / np.sqrt(budget.scatter_share))
+        err = curve.phase_rad - monotone_truth(curve.gray)
+        assert np.mean(((err - err.mean()) / independent) ** 2) < 0.2
+
+
+def test_a_bending_scale_drift_leaves_no_unstated_bias():
+    """A panel warming by 5 K over a minute: its curve's scale follows the order parameter's law (1 - T/Tc)^beta
+    (Tc 333 K, beta 0.22: E7-like, from memory), a course that bends by less than 18 visits of each reference gray
+    (4 frames, 2 mrad each) can show. A level of -6 rad measured 25 s before or after the curve's reference time,
+    corrected with the fitted drift, over 300 seeds: its error over its stated std has mean 0 within 0.15 and RMS
+    0.8..1.2 (-0.07 and 0.92 here). A straight scale line, the degree the visits select, gave a bias of 1.9 sigma
+    (RMS 2.5)."""
+    def law(u, kelvin=5.0, t0_k=298.0, tc_k=333.0, beta=0.22):
+        return ((1 - (t0_k + kelvin * u) / tc_k) / (1 - t0_k / tc_k)) ** beta
+
+    per, visits, noise, phi = 4, 18, 0.002, -6.0
+    t = np.repeat(np.linspace(0, 60, 2 * visits), per) + np.tile(0.01 * np.arange(per), 2 * visits)
+    is_scale = np.repeat(np.arange(2 * visits) % 2 == 1, per)
+    visit = np.repeat(np.arange(2 * visits), per)
+    z = []
+    for seed in range(300):
+        rng = np.random.default_rng(seed)
+        phase = 0.3 * t / 60 + np.where(is_scale, -3.0 * law(t / 60), 0.0) + rng.normal(0, noise, t.size)
+        drift = fit_drift_scale(t, np.angle(np.exp(1j * phase)), np.full(t.size, noise), visit, is_scale, -3.0, 150)
+        drift = replace(drift, scale_at_s=30.0)
+        for at in (5.0, 55.0):
+            measured = 0.3 * at / 60 + law(at / 60) / law(0.5) * phi
+            corrected = (measured - drift(np.array([at]))[0]) / (1 + drift.scale(np.array([at]))[0])
+            z.append((corrected - phi) / drift.std_rad(np.array([at]), phi)[0])
+    assert abs(np.mean(z)) < 0.15 and 0.8 < np.sqrt(np.mean(np.square(z))) < 1.2
+
+
+def test_time_follows_gray():
+    """An ascending or descending sweep ties time to gray; a shuffled one does not."""
+    from analysis.curve import time_follows_gray
+    g = np.arange(0, 256, 2)
+    assert time_follows_gray(g, np.arange(g.size)) and time_follows_gray(g, -np.arange(g.size))
+    assert not time_follows_gray(g, np.random.default_rng(0).permutation(g.size))
 
 
 def test_cyclic_error_removed_from_the_curve():
