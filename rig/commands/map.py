@@ -23,7 +23,7 @@ from rig.output.runs import JournalContents, read_journal
 from rig.run.adaptive import adaptive_settings, adaptive_sweep_steps, finish_model, journal_rows, resumed_settings
 from rig.run.folder import RunFolder
 from rig.run.session import Session, guarded, prepare_run
-from rig.run.stages import auto_exposure, choose_frames, locate, sweep_config, take_dark, tune
+from rig.run.stages import auto_exposure, choose_frames, locate, sweep_config, sweep_frames, take_dark, tune
 from rig.run.steps import UseRegion, sweep_steps
 
 
@@ -128,13 +128,13 @@ def _measure(args, cfg, folder: RunFolder) -> int:
 
 def _finish(folder: RunFolder, cfg, grid, bench, settings=None) -> dict:
     contents = read_journal(folder.path / "journal.jsonl")
-    frames = [r for r in contents.frames() if r["purpose"] in ("level", "reference") and r["phase_rad"] is not None]
+    frames = sweep_frames(contents.frames())
     layout = layout_of(cfg.pattern)
     summary = {"grid": [folder.info["map"]["rows"], folder.info["map"]["cols"]], "range_rad": {},
                "first_gray_2pi": {}, "tiles": {}}
     tables, xs, ys = [], [], []
     for tile in grid:
-        mine = sorted((r for r in frames if r["unit"].startswith(f"{tile.name}/")), key=lambda r: r["t_s"])
+        mine = [r for r in frames if r["unit"].startswith(f"{tile.name}/")]
         curve = phase_curve([r["gray"] for r in mine], [r["phase_rad"] for r in mine],
                             [r["phase_std_rad"] for r in mine], [r["t_s"] for r in mine],
                             [r["contrast"] for r in mine], cfg.sweep.reference_gray, None, smooth=True)

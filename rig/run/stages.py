@@ -316,8 +316,7 @@ def finish(folder: RunFolder, cfg, method: str, bench=None, adaptive: AdaptiveSe
     adaptive sweep also model.csv) and ``status`` complete into run.json; returns the summary analysis.json holds.
     """
     contents = read_journal(folder.path / "journal.jsonl")
-    frames = [r for r in contents.frames() if r["purpose"] in ("level", "reference") and r["phase_rad"] is not None]
-    frames.sort(key=lambda r: r["t_s"])
+    frames = sweep_frames(contents.frames())
     if not frames:
         raise CurveError("sweep: no measured frame in the journal")
     folder.write_csv("frames.csv", list(FRAME_COLUMNS),
@@ -389,6 +388,13 @@ def finish(folder: RunFolder, cfg, method: str, bench=None, adaptive: AdaptiveSe
     return summary
 
 
+def sweep_frames(records: list[dict]) -> list[dict]:
+    """The sweep's measured frames (levels and references with a phase) among journal or frames.csv records, in
+    time order."""
+    frames = [r for r in records if r["purpose"] in ("level", "reference") and r["phase_rad"] is not None]
+    return sorted(frames, key=lambda r: r["t_s"])
+
+
 def curve_from_frames(frames: list[dict], reference_gray: int, info: dict, *, cyclic: bool = True,
                       direction: str | None = None, warnings: list[str] | None = None):
     """The phase curve of a sweep's frames (journal or frames.csv records, any order) as a run makes it, and the
@@ -398,7 +404,7 @@ def curve_from_frames(frames: list[dict], reference_gray: int, info: dict, *, cy
     overrides the probe's. ``cyclic`` False leaves the fringe amplitudes out (no cyclic-error fit), to see what the
     correction does. A missing amplitude is noted in ``warnings``.
     """
-    frames = [r for r in frames if r["purpose"] in ("level", "reference") and r["phase_rad"] is not None]
+    frames = sweep_frames(frames)
     if not frames:
         raise CurveError("sweep: no measured frame")
     measured = (info.get("direction") or {}).get("direction", "unknown")
