@@ -109,8 +109,8 @@ class Sweep:
                                      "reaches every level through the drift model)")
     second_reference_gray: int | str = spec("auto", lo=0, hi=4095,
                                             doc="gray re-measured with every reference for the drift of the curve's "
-                                                "scale: 'auto' (the gray about pi from reference_gray), 'none', or "
-                                                "a gray")
+                                                "scale: 'auto' (the gray farthest in phase from reference_gray on "
+                                                "the coarse scan), 'none', or a gray")
     order: str = spec("ascending", choices=("ascending", "shuffled", "up-down"), doc="order of the levels")
     warmup_slope_rad_per_min: float = spec(0.01, lo=1e-6, hi=10.0, lo_open=False,
                                            doc="warm-up is over when the fringe phase moves less than this a minute")

@@ -6,7 +6,7 @@ import pytest
 from analysis.config import config_from_dict
 from analysis.tuning import coarse_peak, vertex_gray
 from rig.run.steps import (Checkpoint, FrameResult, Grab, Measurement, SetExposure, Settle, ShowSplit, exposure_steps,
-                       opposite_gray, sweep_order, sweep_steps, sweep_units, tune_steps)
+                       farthest_gray, opposite_gray, sweep_order, sweep_steps, sweep_units, tune_steps)
 
 
 def cfg_with(**sweep):
@@ -113,3 +113,14 @@ def test_opposite_gray_is_pi_away_from_the_reference():
     wrapped = np.angle(np.exp(1j * (np.array([truth(g) for g in grays]) + 0.7)))
     g = opposite_gray(grays, wrapped, 0)
     assert abs(truth(g) - np.pi) < 0.15
+
+
+def test_farthest_gray_is_the_longest_lever_even_past_two_pi():
+    """A 3 pi panel: the scan's phases wrap twice, and the farthest gray is still the top one; a curve that turns
+    back (a dip at its end) gives its turning point; a reference mid-scan looks both ways."""
+    grays = [0, 32, 48, 64, 96, 128, 160, 192, 224, 255]
+    for truth, reference, expected in ((lambda g: 3.0 * np.pi * (g / 255) ** 0.7, 0, 255),
+                                       (lambda g: 2.5 * np.pi * np.sin(np.pi * g / 320), 0, 160),
+                                       (lambda g: 2.0 * np.pi * g / 255, 192, 0)):
+        wrapped = np.angle(np.exp(1j * (np.array([truth(g) for g in grays]) - 1.1)))
+        assert farthest_gray(grays, wrapped, reference) == expected

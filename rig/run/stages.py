@@ -24,8 +24,8 @@ from rig.output.runs import read_journal
 from rig.run.adaptive import AdaptiveSettings, adaptive_sweep_steps, finish_model, journal_rows
 from rig.run.folder import RunFolder
 from rig.run.session import Session
-from rig.run.steps import (StepError, exposure_steps, locate_steps, opposite_gray, scatter_steps, sign_steps,
-                           sweep_steps, tune_steps, warmup_steps)
+from rig.run.steps import (StepError, exposure_steps, farthest_gray, locate_steps, opposite_gray, scatter_steps,
+                           sign_steps, sweep_steps, tune_steps, warmup_steps)
 
 MIN_TUNED_CONTRAST = 0.10
 MAX_SCAN_EXTRA = 24  # grays the band stage may add to its coarse scan where the fringe phase moves fast
@@ -200,10 +200,14 @@ def find_sign(s: Session, low: int, high: int, frames: int = 2) -> str:
 
 
 def scale_reference(s: Session, opposite: int) -> int | None:
-    """The second reference gray of the sweep (``sweep.second_reference_gray``; 'auto': ``opposite``, the gray about
-    pi from the reference gray). Writes ``scale_gray`` into run.json; returns it, or None for 'none'."""
+    """The second reference gray of the sweep (``sweep.second_reference_gray``; 'auto': the gray of the band stage's
+    coarse scan farthest in phase from the reference gray, the longest lever for the scale drift; ``opposite``
+    without a scan). Writes ``scale_gray`` into run.json; returns it, or None for 'none'."""
     chosen = s.cfg.sweep.second_reference_gray
-    gray = None if chosen == "none" or not s.cfg.sweep.reference_every else opposite if chosen == "auto" else chosen
+    scan = s.folder.info.get("coarse_scan")
+    auto = (farthest_gray(scan["gray"], scan["fringe_phase_rad"], s.cfg.sweep.reference_gray) if scan
+            else opposite)
+    gray = None if chosen == "none" or not s.cfg.sweep.reference_every else auto if chosen == "auto" else chosen
     if gray == s.cfg.sweep.reference_gray:
         gray = None
     s.folder.update(scale_gray=gray)
@@ -216,8 +220,9 @@ PROBE_FRAMES = 10      # back-to-back frames of the scatter probe at each refere
 
 def choose_frames(s: Session, low: int, high: int) -> None:
     """Frames stage, for ``sweep.frames_per_level`` 'auto' (nothing otherwise, or when run.json has the choice):
-    PROBE_FRAMES back to back at the reference gray (and at run.json's ``scale_gray``), whose scatter beyond
-    their pixel noise (vibration, flicker) sets the frames per level that bring a level's standard error to
+    PROBE_FRAMES back to back at the reference gray, at the gray pi from it on the band stage's coarse scan (mid
+    curve, where the phase is steep and drive flicker, dphase/dV times the voltage ripple, the largest) and at
+    run.json's ``scale_gray``; their scatter beyond their pixel noise (vibration, flicker), pooled, sets the frames per level that bring a level's standard error to
     ``sweep.target_std_mrad`` (analysis.curve.frames_for_target), within AUTO_FRAMES.
 
     Writes ``auto_frames`` (the choice and the figures behind it) into run.json; returns nothing.
@@ -225,8 +230,9 @@ def choose_frames(s: Session, low: int, high: int) -> None:
     cfg = s.cfg
     if cfg.sweep.frames_per_level != "auto" or "auto_frames" in s.folder.info:
         return
-    grays = (cfg.sweep.reference_gray,) + ((s.folder.info["scale_gray"],) if s.folder.info.get("scale_gray")
-                                           is not None else ())
+    scan, scale = s.folder.info.get("coarse_scan"), s.folder.info.get("scale_gray")
+    steep = opposite_gray(scan["gray"], scan["fringe_phase_rad"], cfg.sweep.reference_gray) if scan else None
+    grays = tuple(g for g in dict.fromkeys((cfg.sweep.reference_gray, steep, scale)) if g is not None)
     measured = s.engine.run(scatter_steps(cfg, low, high, grays, PROBE_FRAMES))
     rows = [(i, r.phase_rad, r.phase_std_rad) for i, m in enumerate(measured) for r in m.results
             if r.phase_rad is not None and r.phase_std_rad is not None]

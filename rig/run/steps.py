@@ -190,14 +190,27 @@ def locate_steps(cfg, low: int, high: int, grays=None):
     return measurements
 
 
-def opposite_gray(grays, phases_rad, reference_gray: int) -> int:
-    """The gray whose fringe phase is pi away from the reference gray's, from a coarse (gray, phase) scan."""
+def _from_reference(grays, phases_rad, reference_gray: int):
+    """(grays, unwrapped fringe phase less the reference gray's, rad) of a coarse scan in gray order."""
     grays = np.asarray(grays)
     curve = np.unwrap(np.asarray(phases_rad, float))
-    curve = curve - np.interp(reference_gray, grays, curve)
+    return grays, curve - np.interp(reference_gray, grays, curve)
+
+
+def opposite_gray(grays, phases_rad, reference_gray: int) -> int:
+    """The gray whose fringe phase is pi away from the reference gray's, from a coarse (gray, phase) scan."""
+    grays, curve = _from_reference(grays, phases_rad, reference_gray)
     fine = np.arange(grays.min(), grays.max() + 1)
     wrapped = np.angle(np.exp(1j * (np.interp(fine, grays, curve) - np.pi)))
     return int(fine[np.argmin(np.abs(wrapped))])
+
+
+def farthest_gray(grays, phases_rad, reference_gray: int) -> int:
+    """The gray of a coarse (gray, phase) scan whose fringe phase lies farthest from the reference gray's: the
+    longest lever for the drift of the curve's scale, whose error on a level is the scale's error times the
+    level's phase from the reference (a scale measured a third of the way out is tripled at the far end)."""
+    grays, curve = _from_reference(grays, phases_rad, reference_gray)
+    return int(grays[np.argmax(np.abs(curve))])
 
 
 # --- the sign of the phase --------------------------------------------------------------------------------
@@ -333,7 +346,7 @@ def scatter_steps(cfg, low: int, high: int, grays: tuple[int, ...], frames: int)
     """Hold the split pattern at each of ``grays`` and grab ``frames`` back to back (the scatter probe of
     frames_per_level 'auto'); return the Measurements in order."""
     yield Stage("frames", len(grays), what=f"{frames} frames back to back at gray{'s' if len(grays) > 1 else ''} "
-                                           + " and ".join(map(str, grays)))
+                                           + ", ".join(map(str, grays)))
     out = []
     for gray in grays:
         yield ShowSplit(gray, low, high)
