@@ -14,6 +14,22 @@ from configs import DEFAULT_SIM, HERE
 SMALL_CONFIG = HERE / "small-bench.toml"
 
 
+# Helper modules of tests that drive a shared device: the X display's panel monitor, Aravis's simulated cameras.
+SHARED_DEVICES = ("xdisplay", "genicam_cams")
+
+
+def pytest_collection_modifyitems(items):
+    """Under pytest-xdist (pyproject's addopts), the test files that use a shared device run one after another on one
+    worker: two windows on the panel monitor would hide each other, two simulated GigE cameras would claim one port."""
+    shares = {}
+    for item in items:
+        if item.path not in shares:
+            text = item.path.read_text()
+            shares[item.path] = any(name in text for name in SHARED_DEVICES)
+        if shares[item.path]:
+            item.add_marker(pytest.mark.xdist_group("shared-devices"))
+
+
 @pytest.fixture(scope="session")
 def demo_cfg():
     """The shipped default simulator config (1064 nm tweezers bench)."""
