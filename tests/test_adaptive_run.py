@@ -26,6 +26,7 @@ def choices(folder):
             if r.get("checkpoint", "").startswith("choice:")]
 
 
+@pytest.mark.timeout(900)  # the demo bench, every non-ideality on: 211 s of a busy machine's core
 def test_adaptive_run_on_the_demo_bench(tmp_path, capsys):
     """`run --sim --adaptive` on the demo bench: its summary states the table's error against the truth, manifest.csv
     holds at most a quarter of the frames a full sweep takes, and phase.csv has a row for every gray, the measured

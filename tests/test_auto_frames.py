@@ -54,8 +54,8 @@ VIBRATING = {"sweep.levels": [0, 24, 48, 72, 96, 120, 144, 168, 192, 216, 240, 2
 def test_auto_frames_bring_each_level_to_the_target_on_a_vibrating_bench(tmp_path):
     """The small bench on a table whose vibration tilts the panel by 0.4 urad rms a frame: every level and every
     reference visit gets the probe's number of frames; the levels' own frames scatter no more than the probe said
-    (its 20 frames, 18 degrees of freedom, know the scatter to +-17 % at one sigma: +35 % allowed; less is only
-    caution), and the level means' frame-scatter standard error (from the levels' own frames, not the probe)
+    (10 frames at each of its three grays, the reference gray, the gray pi from it and the second reference gray:
+    27 degrees of freedom know the scatter to +-14 % at one sigma, +35 % allowed; less is only caution), and the level means' frame-scatter standard error (from the levels' own frames, not the probe)
     reaches the 2 mrad target (at most 30 % above it) without overshooting it by more than half (this draw: the
     probe said 5.0 mrad a frame, the levels show 3.7, so with 7 frames they came to 1.4 mrad)."""
     cfg = small_config_file(tmp_path, **VIBRATING)
@@ -63,7 +63,13 @@ def test_auto_frames_bring_each_level_to_the_target_on_a_vibrating_bench(tmp_pat
     assert main(["run", "--sim", "--config", str(cfg), "--out", str(run), "--no-frames"]) == 0
     chosen = json.loads((run / "run.json").read_text())["auto_frames"]
     n = chosen["per_level"]
-    assert 3 <= n <= 16 and chosen["probe_frames"] == 20 and chosen["target_rad"] == 2e-3
+    info = json.loads((run / "run.json").read_text())
+    grays = chosen["probe_grays"]
+    assert len(set(grays)) == 3 and grays[0] == 0 and grays[2] == info["scale_gray"]
+    scan = np.unwrap(info["coarse_scan"]["fringe_phase_rad"])
+    steep = np.interp(grays[1], info["coarse_scan"]["gray"], scan) - np.interp(0, info["coarse_scan"]["gray"], scan)
+    assert abs(np.angle(np.exp(1j * (steep - np.pi)))) < 0.3  # the middle one pi from the reference gray
+    assert chosen["probe_frames"] == 10 * len(grays) and 3 <= n <= 16 and chosen["target_rad"] == 2e-3
     frames = read_journal(run / "journal.jsonl").frames()
     counts = {}
     for r in frames:

@@ -178,8 +178,10 @@ def phase_csv(transform):
     return make
 
 
-def dip(g, p, s):
-    return (p + 3.0 if g == 128 else p), s
+def glitch(g, p, s):
+    """Gray 128's phase 6 rad up: the step into or out of it then goes back against the curve's direction by more than
+    1 rad whichever way the curve runs (its steps between these grays are under 5 rad)."""
+    return (p + 6.0 if g == 128 else p), s
 
 
 # --- the cases ---------------------------------------------------------------------------------------------
@@ -326,7 +328,7 @@ case("analyze-manifest-with-bom", 0, None)(
 
 # --- lut --------------------------------------------------------------------------------------------------------
 LUT = {
-    "phase-dip-3rad": (lambda ws, c: [phase_csv(dip)(c, ws)], "gray 128"),
+    "phase-glitch-6rad": (lambda ws, c: [phase_csv(glitch)(c, ws)], "gray 128"),
     "phases-1e300": (lambda ws, c: [phase_csv(lambda g, p, s: (p * 1e300, s))(c, ws)], "phase_rad"),
     "std-1e300": (lambda ws, c: [phase_csv(lambda g, p, s: (p, 1e300))(c, ws)], "phase_std_rad"),
     "wavelength-1e308": (lambda ws, c: [ws / "done" / "phase.csv", "--wavelength-nm", "1e308"], "--wavelength-nm"),

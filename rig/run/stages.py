@@ -245,7 +245,7 @@ def choose_frames(s: Session, low: int, high: int) -> None:
         raise StepError("frames: the scatter probe measured too few fringe phases; check the fringes with "
                         "`fringecal align`, or set sweep.frames_per_level to a number") from None
     s.folder.update(auto_frames={"per_level": n, "frame_scatter_rad": scatter, "pixel_noise_rad": pixel,
-                            "target_rad": target, "probe_frames": len(rows)})
+                            "target_rad": target, "probe_frames": len(rows), "probe_grays": list(grays)})
     capped = " (the most it takes)" if n == AUTO_FRAMES[1] and math.hypot(scatter, pixel) > target * n**0.5 else ""
     s.log(f"frames: {n} a level{capped}: the frames scatter by {1e3 * scatter:.1f} mrad beyond {1e3 * pixel:.2f} "
           f"mrad of pixel noise, and a level's standard error is to be {1e3 * target:g} mrad")
