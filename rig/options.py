@@ -5,6 +5,7 @@ from __future__ import annotations
 import argparse
 import math
 import os
+import tempfile
 from pathlib import Path
 
 from analysis.config import Config, load_config
@@ -73,19 +74,20 @@ def output_folder(path: str, what: str = "--out") -> Path:
 
 
 def writable(path: str, what: str) -> Path:
-    """A file to write: not a folder, in a folder that exists, and creatable there."""
+    """A file to write: not a folder, in a folder that exists, and creatable there. A file not there yet is not
+    made here (a program following it would see it come and go): a scratch file in its folder is, and removed."""
     out = Path(path)
     if out.is_dir():
         raise UsageError(f"{what}: {out} is a folder; expected a file name")
     if not out.parent.is_dir():
         raise UsageError(f"{what}: folder {out.parent} does not exist")
-    existed = out.exists()
     try:
-        os.close(os.open(out, os.O_WRONLY | os.O_CREAT | os.O_APPEND))
+        if out.exists():
+            os.close(os.open(out, os.O_WRONLY | os.O_APPEND))
+        else:
+            tempfile.TemporaryFile(dir=out.parent).close()
     except OSError as err:
         raise UsageError(f"{what}: cannot write {out} ({err.strerror})") from None
-    if not existed:
-        out.unlink()
     return out
 
 

@@ -265,6 +265,9 @@ PATHS = {
     "run-out-proc": (lambda ws, c: ["run", *SIM, "--out", "/proc/x"], "--out"),
     "run-events-proc": (lambda ws, c: ["run", *SIM, "--out", c / "r", "--events", "/proc/x/e.jsonl"], "--events"),
     "run-events-a-folder": (lambda ws, c: ["run", *SIM, "--out", c / "r", "--events", c], "--events"),
+    # a folder that exists but takes no new file (even for root): the check writes a scratch file, not the events file
+    "run-events-unwritable-folder": (lambda ws, c: ["run", *SIM, "--out", c / "r", "--events", "/proc/e.jsonl"],
+                                     "--events"),
     "sweep-out-a-file": (lambda ws, c: ["sweep", *SIM, "--out", raw_file("f", b"x")(c)], "--out"),
     "tune-events-proc": (lambda ws, c: ["tune", *SIM, "--out", c / "r", "--events", "/proc/x/e"], "--events"),
     "flicker-events-proc": (lambda ws, c: ["flicker", *SIM, "--gray", 5, "--out", c / "r", "--events", "/proc/x/e"],

@@ -183,3 +183,48 @@ def test_an_internal_error_is_one_line_with_a_log_and_marks_the_run_failed(bench
     resumed = run("sweep", "--resume", folder, cwd=tmp_path)  # nothing measured was lost
     assert resumed.returncode == 0, resumed.stderr
     assert (folder / "phase.csv").read_text() == (bench / "whole-sweep" / "phase.csv").read_text()
+
+
+class HeldLock:
+    """Stands in for a listener's lock that the interrupted loop holds: acquiring it is recorded, never waited on."""
+
+    def __init__(self):
+        self.held, self.tried_while_held = True, 0
+
+    def __enter__(self):
+        self.tried_while_held += self.held
+        return self
+
+    def __exit__(self, *exc):
+        return False
+
+
+def test_a_stop_signal_takes_no_lock_the_interrupted_loop_may_hold(tmp_path, small_cfg):
+    """A stop signal's handler runs in the main thread between two bytecodes of the loop, perhaps while the loop
+    holds the progress state's lock (publishing a frame event). A handler that published its notice there waited on
+    that lock for ever: a run once hung in its tune stage on SIGTERM. The handler only asks the engine to stop; the
+    loop publishes the notice at its next step and stops there, resumably."""
+    import argparse
+    import os
+
+    from rig.options import DEFAULT_METHOD
+    from rig.run.engine import Interrupted
+    from rig.run.folder import RunFolder
+    from rig.run.session import Session
+    from rig.run.steps import ShowSplit
+
+    def one_pattern():
+        yield ShowSplit(0, 0, 80)
+
+    folder = RunFolder.create(tmp_path / "run", small_cfg, ["test"], {"camera_backend": "sim"}, save_frames=False)
+    args = argparse.Namespace(sim=True, method=DEFAULT_METHOD, events=str(tmp_path / "events"), json=False)
+    with Session(args, small_cfg, folder, "stop test") as s:
+        s.state.lock = lock = HeldLock()
+        os.kill(os.getpid(), signal.SIGTERM)  # handled at once, in this thread, "while the lock is held"
+        assert lock.tried_while_held == 0
+        lock.held = False
+        with pytest.raises(Interrupted):
+            s.engine.run(one_pattern())
+    notices = [json.loads(line) for line in (tmp_path / "events").read_text().splitlines()]
+    assert [e["message"] for e in notices if e["event"] == "log"] == [
+        "SIGTERM: stopping after the current level (Ctrl-C again to stop at once)"]

@@ -11,7 +11,8 @@ Contract:
   bounded); a checkpoint is journaled after the frames of its unit.
 - A save that fails (a full disk) stops every later save, and its error reaches the loop at the next frame.
 - ``request_stop()`` (Ctrl-C) makes the loop stop before the next pattern change: ``Interrupted`` is raised once the
-  worker has drained, leaving the run resumable.
+  worker has drained, leaving the run resumable. It takes no lock (a signal handler may interrupt the loop while it
+  holds one); the notice it is given is published by the loop at its next step.
 """
 
 from __future__ import annotations
@@ -64,6 +65,7 @@ class Engine:
         self._to_discard = 0
         self._readings: dict = {}
         self._stop = False
+        self._stop_notice: str | None = None
         self._worker = ThreadPoolExecutor(max_workers=1, thread_name_prefix="analysis")
         self._saver = ThreadPoolExecutor(max_workers=1, thread_name_prefix="saving")
         self._pending: collections.deque[Future] = collections.deque()
@@ -77,8 +79,10 @@ class Engine:
         self._stage_total = 0
 
     # --- control ---------------------------------------------------------------------------------------------
-    def request_stop(self) -> None:
-        """Stop before the next pattern change (safe to call from a signal handler)."""
+    def request_stop(self, notice: str | None = None) -> None:
+        """Stop before the next pattern change; ``notice`` is logged at the next step. Safe in a signal handler:
+        it only sets attributes (publishing from there could wait forever on a lock the interrupted loop holds)."""
+        self._stop_notice = notice
         self._stop = True
 
     def run(self, steps):
@@ -111,6 +115,9 @@ class Engine:
 
     # --- steps -----------------------------------------------------------------------------------------------
     def _execute(self, step):
+        if self._stop_notice is not None:
+            notice, self._stop_notice = self._stop_notice, None
+            self.publish({"event": "log", "message": notice})
         if isinstance(step, (ShowSplit, ShowStaircase, Stage)) and self._stop:
             self.drain()
             raise Interrupted("stopped on request; resume to finish")

@@ -148,9 +148,8 @@ class Session:
         def on_stop(signum, frame):
             if self.engine._stop:
                 raise KeyboardInterrupt
-            self.engine.request_stop()
             name = "Ctrl-C" if signum == signal.SIGINT else signal.Signals(signum).name
-            self.log(f"{name}: stopping after the current level (Ctrl-C again to stop at once)")
+            self.engine.request_stop(f"{name}: stopping after the current level (Ctrl-C again to stop at once)")
 
         self._previous_handlers = {sig: signal.signal(sig, on_stop) for sig in STOP_SIGNALS}
         if self.live is not None:
