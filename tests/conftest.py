@@ -18,6 +18,7 @@ SMALL_CONFIG = HERE / "small-bench.toml"
 SHARED_DEVICES = ("xdisplay", "genicam_cams")
 
 
+@pytest.hookimpl(tryfirst=True)  # before xdist's own hook, which reads the mark into the test's id
 def pytest_collection_modifyitems(items):
     """Under pytest-xdist (pyproject's addopts), the test files that use a shared device run one after another on one
     worker: two windows on the panel monitor would hide each other, two simulated GigE cameras would claim one port."""

@@ -2,6 +2,7 @@
 settings read back, pixel formats and bit depth, a ROI set on the camera, timeouts, a vanished camera, finding and
 listing cameras. (The shared camera contract runs on both in tests/test_camera_contract.py.)"""
 
+import os
 import time
 
 import numpy as np
@@ -301,3 +302,12 @@ def test_genicam_mono10_and_mono12_buffers_keep_their_counts(bits):
     cam.bit_depth, cam.name = bits, "test camera"
     image = cam._image(Buffer())
     assert image.dtype == np.dtype("<u2") and np.array_equal(image, counts)
+
+
+def test_shared_device_tests_run_on_one_worker(request):
+    """This file serves a simulated GigE camera on a fixed address: under pytest-xdist its tests carry the shared
+    devices' group in their id (xdist's loadgroup then sends them all to one worker), else two workers' cameras would
+    claim the same port (seen: read_memory timeouts)."""
+    assert request.node.get_closest_marker("xdist_group").args == ("shared-devices",)
+    if os.environ.get("PYTEST_XDIST_WORKER"):
+        assert request.node.nodeid.endswith("@shared-devices")
