@@ -35,7 +35,7 @@ def cmd_run(args) -> int:
             result = tune(s, opposite)
             auto_exposure(s, result.low, result.high)  # the tuned first order is brighter than the starting pair's
             find_sign(s, result.low, result.high)
-            scale_reference(s, opposite)
+            scale_reference(s)
             choose_frames(s, result.low, result.high)
             sweep(s, result.low, result.high, adaptive=settings)
             bench = s.devices.bench

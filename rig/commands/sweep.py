@@ -70,10 +70,10 @@ def cmd_sweep(args) -> int:
 
     def body():
         with Session(args, cfg, folder, "fringecal sweep") as s:
-            opposite = get_ready(s, low, high)
+            get_ready(s, low, high)
             warm_up(s, low, high, args.warmup_minutes)
             find_sign(s, low, high)
-            scale_reference(s, opposite)
+            scale_reference(s)
             choose_frames(s, low, high)
             sweep(s, low, high, adaptive=settings)
             bench = s.devices.bench

@@ -199,15 +199,15 @@ def find_sign(s: Session, low: int, high: int, frames: int = 2) -> str:
     return probe.direction
 
 
-def scale_reference(s: Session, opposite: int) -> int | None:
+def scale_reference(s: Session) -> int | None:
     """The second reference gray of the sweep (``sweep.second_reference_gray``; 'auto': the gray of the band stage's
-    coarse scan farthest in phase from the reference gray, the longest lever for the scale drift; ``opposite``
-    without a scan). Writes ``scale_gray`` into run.json; returns it, or None for 'none'."""
+    coarse scan in run.json farthest in phase from the reference gray, the longest lever for the scale drift).
+    Writes ``scale_gray`` into run.json; returns it, or None for 'none'."""
     chosen = s.cfg.sweep.second_reference_gray
-    scan = s.folder.info.get("coarse_scan")
-    auto = (farthest_gray(scan["gray"], scan["fringe_phase_rad"], s.cfg.sweep.reference_gray) if scan
-            else opposite)
-    gray = None if chosen == "none" or not s.cfg.sweep.reference_every else auto if chosen == "auto" else chosen
+    if chosen == "auto":
+        scan = s.folder.info["coarse_scan"]
+        chosen = farthest_gray(scan["gray"], scan["fringe_phase_rad"], s.cfg.sweep.reference_gray)
+    gray = None if chosen == "none" or not s.cfg.sweep.reference_every else chosen
     if gray == s.cfg.sweep.reference_gray:
         gray = None
     s.folder.update(scale_gray=gray)
@@ -222,8 +222,9 @@ def choose_frames(s: Session, low: int, high: int) -> None:
     """Frames stage, for ``sweep.frames_per_level`` 'auto' (nothing otherwise, or when run.json has the choice):
     PROBE_FRAMES back to back at the reference gray, at the gray pi from it on the band stage's coarse scan (mid
     curve, where the phase is steep and drive flicker, dphase/dV times the voltage ripple, the largest) and at
-    run.json's ``scale_gray``; their scatter beyond their pixel noise (vibration, flicker), pooled, sets the frames per level that bring a level's standard error to
-    ``sweep.target_std_mrad`` (analysis.curve.frames_for_target), within AUTO_FRAMES.
+    run.json's ``scale_gray``; their scatter beyond their pixel noise (vibration, flicker), pooled, sets the frames
+    per level that bring a level's standard error to ``sweep.target_std_mrad`` (analysis.curve.frames_for_target),
+    within AUTO_FRAMES.
 
     Writes ``auto_frames`` (the choice and the figures behind it) into run.json; returns nothing.
     """
