@@ -880,7 +880,10 @@ def phase_curve(gray, phase_rad, std_rad, time_s=None, contrast=None, reference_
         if leak is not None:
             phase = np.angle(np.exp(1j * (phase + leak.correction_rad)))
             cyclic = leak.correction_std_rad
-            if not leak.applied and leak.arc_rad < MIN_ARC_RAD:
+            if not leak.assessed:
+                warnings.append(f"cyclic error {leak.reason}: a cyclic error is not ruled out and not in the "
+                                f"uncertainty; measure more levels over a whole fringe period")
+            elif not leak.applied and leak.arc_rad < MIN_ARC_RAD:
                 warnings.append(f"cyclic error of a leak |L|/a = {leak.ratio:.4f} +- {leak.ratio_std:.4f} "
                                 f"{leak.reason}; the error left in is carried in the uncertainty")
 

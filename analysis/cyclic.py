@@ -36,6 +36,14 @@ RMS off the truth without the gain and 3.3 mrad with it.
 The circle is told from a smooth amplitude change only when the phases cover most of the circle: with less than
 MIN_ARC_RAD the amplitude is held constant (the only radius a short arc pins down), the fit is reported but never
 applied, and the possible error it describes is carried as an uncertainty instead.
+
+A leak is also told from an amplitude change only when the model describes the amplitudes at all: an amplitude
+that jumps from level to level (six levels at 1, 0.8, 0.55, 0.4, 0.6 and 0.9 of the light) is as well a leak as
+not, and a fit through it returns a leak as large as the fringe. Where the levels repeat frames, the level means'
+misfit (what the circle and its harmonic distortion leave) is compared with the frames' own scatter about them;
+beyond LEVEL_MISFIT_MAX the leak is reported as not assessed: no correction, nothing carried, and the caller warns
+that a cyclic error cannot be ruled out. An ellipse (a 2 % conjugate leak: level misfit 69 from the circle alone,
+1.0 with the harmonics fitted beside it) stays assessed and its floor counts.
 """
 
 from __future__ import annotations
@@ -53,7 +61,10 @@ AMPLITUDE_TERM_CHI2 = 9.0     # a higher amplitude degree is kept only if it low
 MAX_GAIN_TIME_DEGREE = 3      # the amplitudes' common gain changes as a polynomial in time of at most this degree
 MAX_LEAK_TIME_DEGREE = 1      # the leak moves as a polynomial in time of at most this degree (each term as above)
 RESIDUAL_HARMONICS = (2, 3)   # radial harmonics of the phase a single leak cannot make; their size is the floor
-HARMONIC_RCOND = 1e-3         # harmonic combinations whose singular value is below this share of the largest drop
+HARMONIC_RCOND = 0.1          # harmonic combinations whose singular value is below this share of the largest drop
+HARMONIC_SIGMAS = 2.0         # a harmonic combination counts toward the floor when this many standard errors from 0
+LEVEL_MISFIT_MAX = 16.0       # level means' radial misfit over the frames' own scatter (a variance ratio) beyond
+                              # which the circle model does not describe the amplitudes and the leak is not assessed
 
 
 @dataclass(frozen=True, eq=False)
@@ -61,13 +72,17 @@ class LeakFit:
     """A fitted leak phasor and the phase correction it implies for each input point.
 
     ``leak`` is L at the middle of the points' times, ``leak_drift`` L' (the change from there to the last time;
-    0 when not fitted). ``ratio`` is |L| / a with a the fitted amplitude averaged over the points, ``leak_phase_rad`` arg L (the camera
-    frame of the carrier), each with its standard uncertainty. ``significance`` is sqrt(L^T C^-1 L) with C the
-    covariance of (Re L, Im L) (with L', of all four): the distance of L from zero in standard errors. ``correction_rad`` is what to add to
-    each point's phase (zero where not applied); ``correction_std_rad`` its standard uncertainty, or, where the
-    correction is not applied, the cyclic error left in (the would-be correction and its uncertainty combined).
-    ``residual_rad`` is the RMS phase error of the distortion the circle model leaves (harmonics 2 and 3 of the
-    radial residual, noise removed), a systematic floor. ``chi2_per_dof`` > 1 inflated the covariance by itself.
+    0 when not fitted). ``ratio`` is |L| / a with a the fitted amplitude averaged over the points,
+    ``leak_phase_rad`` arg L (the camera frame of the carrier), each with its standard uncertainty.
+    ``significance`` is sqrt(L^T C^-1 L) with C the covariance of (Re L, Im L) (with L', of all four): the distance
+    of L from zero in standard errors. ``correction_rad`` is what to add to each point's phase (zero where not
+    applied); ``correction_std_rad`` its standard uncertainty, or, where the correction is not applied, the cyclic
+    error left in (the would-be correction and its uncertainty combined; zero when the leak is not assessed).
+    ``level_misfit`` is the level means' radial chi-square per level (what the circle and its harmonics leave) over
+    the frames' chi-square per degree of freedom about their level means (about 1 when the model holds; nan without
+    repeated frames), ``assessed`` whether it stayed within LEVEL_MISFIT_MAX. ``residual_rad`` is the RMS phase
+    error of the distortion the circle model leaves (harmonics 2 and 3 of the radial residual, noise removed; 0
+    when not assessed), a systematic floor. ``chi2_per_dof`` > 1 inflated the covariance by itself.
     """
 
     leak: complex
@@ -86,6 +101,8 @@ class LeakFit:
     correction_std_rad: np.ndarray
     reason: str
     leak_drift: complex = 0j
+    level_misfit: float = math.nan
+    assessed: bool = True
 
     @property
     def peak_error_rad(self) -> float:
@@ -98,7 +115,8 @@ class LeakFit:
                 "leak_phase_rad": self.leak_phase_rad, "leak_phase_std_rad": self.leak_phase_std_rad,
                 "significance_sigma": self.significance, "peak_error_rad": self.peak_error_rad,
                 "arc_rad": self.arc_rad, "amplitude_degree": self.amplitude_degree,
-                "chi2_per_dof": self.chi2_per_dof, "residual_rad": self.residual_rad,
+                "chi2_per_dof": self.chi2_per_dof, "residual_rad": self.residual_rad, "assessed": self.assessed,
+                "level_misfit": None if math.isnan(self.level_misfit) else self.level_misfit,
                 "leak_drift_ratio": abs(self.leak_drift) / max(abs(self.leak) / max(self.ratio, 1e-300), 1e-300)
                 if self.ratio > 0 else 0.0}
 
@@ -234,7 +252,15 @@ def fit_leak(gray, z, z_std, *, significance: float = SIGNIFICANCE, time_s=None,
     would_be = np.angle(np.exp(1j * would_be))
     corr_std = np.sqrt(np.maximum(np.einsum("ij,jk,ik->i", grad, cov_l, grad), 0.0))
 
-    if arc < MIN_ARC_RAD:
+    floor, rel_left = _harmonic_floor(g, np.angle(w), (np.abs(w) - amplitude) / amplitude, sigma / amplitude, jac)
+    misfit = level_misfit(g, rel_left, sigma / amplitude)
+    assessed = not misfit > LEVEL_MISFIT_MAX
+    if not assessed:
+        applied = False
+        reason = (f"not assessed: the fringe amplitude changes from level to level in a way no smooth amplitude "
+                  f"with a leak describes (level misfit {misfit:.0f} x the frames' scatter); a leak cannot be "
+                  f"told from it")
+    elif arc < MIN_ARC_RAD:
         applied = False
         reason = (f"not applied: the phases cover {arc:.2f} rad of the circle, a leak needs {MIN_ARC_RAD:.2f} rad "
                   f"to be told from a change of fringe amplitude with gray")
@@ -246,29 +272,63 @@ def fit_leak(gray, z, z_std, *, significance: float = SIGNIFICANCE, time_s=None,
         reason = f"applied: leak {signif:.1f} standard errors from zero"
     if applied:
         correction, correction_std = would_be, corr_std
-    else:
+    elif assessed:
         correction, correction_std = np.zeros(z.size), np.hypot(would_be, corr_std)
-
-    residual = _harmonic_floor(np.angle(w), (np.abs(w) - amplitude) / amplitude, sigma / amplitude,
-                               max(chi2_dof, 1.0))
+    else:
+        correction, correction_std, floor = np.zeros(z.size), np.zeros(z.size), 0.0
     return LeakFit(leak, cov[:2, :2], mod / mean_amp, ratio_std, float(np.angle(leak)), phase_std, signif, applied,
-                   arc, degree, chi2_dof, residual, correction, correction_std, reason, drift)
+                   arc, degree, chi2_dof, floor, correction, correction_std, reason, drift, misfit, assessed)
 
 
-def _harmonic_floor(theta: np.ndarray, rel_resid: np.ndarray, rel_sigma: np.ndarray, inflation: float) -> float:
-    """RMS phase error (rad) of the radial residual's harmonics RESIDUAL_HARMONICS, less what noise alone gives.
+def level_misfit(gray: np.ndarray, resid: np.ndarray, sigma: np.ndarray) -> float:
+    """Chi-square per level of the levels' weighted mean residuals over the frames' chi-square per degree of
+    freedom about those means (a variance ratio, about 1 when the residuals are the frames' own scatter); nan when
+    fewer than two frames repeat a level. ``resid`` and ``sigma`` in one unit, one per frame."""
+    _, level = np.unique(gray, return_inverse=True)
+    n_levels = int(level.max()) + 1
+    weight = sigma**-2.0
+    total = np.bincount(level, weight, n_levels)
+    mean = np.bincount(level, weight * resid, n_levels) / total
+    within_dof = resid.size - n_levels
+    if within_dof < 2:
+        return math.nan
+    within = float(np.sum(weight * (resid - mean[level]) ** 2)) / within_dof
+    between = float(np.sum(total * mean**2)) / n_levels
+    return between / max(within, 1e-300)
+
+
+def _harmonic_floor(gray: np.ndarray, theta: np.ndarray, rel_resid: np.ndarray, rel_sigma: np.ndarray,
+                    jac: np.ndarray) -> tuple[float, np.ndarray]:
+    """RMS phase error (rad) of the radial residual's harmonics RESIDUAL_HARMONICS, less what noise alone gives,
+    and the relative residual left when the levels pin those harmonics beside the circle (else the residual as is).
 
     A distortion of the circle into an ellipse (unequal gains) or a three-lobed shape moves points along the circle
-    by as much as across it, so the radial harmonics, which the fit can see, size the phase errors it cannot.
-    Only the harmonic combinations the phases pin down count: points at a few distinct phases (six levels evenly
-    round the circle make cos 3 theta and sin 3 theta one column) leave a direction whose estimate is all noise,
-    and its noise, however large, would swing the floor; singular values below HARMONIC_RCOND of the largest drop.
+    by as much as across it, so the radial harmonics, which the fit can see, size the phase errors it cannot. They
+    are fitted jointly with the circle to first order: their columns are taken orthogonal to the circle fit's
+    whitened Jacobian ``jac`` (a cubic amplitude in gray takes up part of cos 2 theta; fitted after it, a 2 %
+    ellipse left two thirds of its error unseen). Only the combinations the phases pin down count: points at a
+    few distinct phases (six levels evenly round the circle make cos 3 theta and sin 3 theta one column, split
+    only by the frames' phase noise) leave a direction whose estimate is mostly noise (a 6-level set with 0.2
+    mrad of noise per level stated 28 mrad): singular values below HARMONIC_RCOND of the largest drop, and each
+    remaining combination counts, less its noise variance, only when HARMONIC_SIGMAS standard errors from zero.
+    The noise variance is the residual's chi-square per degree of freedom once the harmonics are removed, or 1.
     """
     cols = []
     for m in RESIDUAL_HARMONICS:
         cols += [np.cos(m * theta), np.sin(m * theta)]
+    white = rel_resid / rel_sigma
     design = np.column_stack(cols) / rel_sigma[:, None]
-    coef, *_ = np.linalg.lstsq(design, rel_resid / rel_sigma, rcond=HARMONIC_RCOND)
-    cov = np.linalg.pinv(design.T @ design, rcond=HARMONIC_RCOND**2, hermitian=True) * inflation
-    power = float(np.sum(coef**2) - np.trace(cov))
-    return math.sqrt(max(power, 0.0) / 2)
+    q, jsv, _ = np.linalg.svd(jac, full_matrices=False)
+    q = q[:, jsv > 1e-9 * jsv[0]]
+    design = design - q @ (q.T @ design)
+    u, sv, _ = np.linalg.svd(design, full_matrices=False)
+    keep = sv >= HARMONIC_RCOND * sv[0]
+    coef = u[:, keep].T @ white                        # whitened coefficients along the pinned combinations
+    left = white - u[:, keep] @ coef
+    dof = max(white.size - q.shape[1] - int(keep.sum()), 1)
+    var = max(float(np.sum(left**2)) / dof, 1.0)
+    counted = coef**2 > HARMONIC_SIGMAS**2 * var
+    power = float(np.sum((coef[counted] ** 2 - var) / sv[keep][counted] ** 2))
+    if np.unique(gray).size < q.shape[1] + int(keep.sum()) + 2:
+        left = white                                   # too few levels to tell harmonics from the amplitude's shape
+    return math.sqrt(max(power, 0.0) / 2), left * rel_sigma

@@ -210,10 +210,13 @@ def test_analyze_command_is_near_the_bound_with_honest_std(tmp_path, name):
     """The `fringecal analyze` command, default options, on framegen frames: each level's pixel-noise part of the
     stated std (analysis.json's budget) is within 1.25x of the bound for the mean of its frames, and, one common
     offset removed (the curve is relative to one level, whose own error moves all the others alike), the levels
-    agree with the truth to a chi-square per degree of freedom below 3 with the whole stated std (the 99.9th
-    percentile of chi-square with 5 degrees of freedom over 5 is 4.1). With the ghost (6 % of the mirror beam's
-    field, a cyclic error of +-62 mrad) the cyclic correction must make the levels honest too; its noise part may
-    reach 2x the bound there (issue 12)."""
+    agree with the truth to a chi-square per degree of freedom between 0.05 and 3 with the whole stated std (the
+    0.2nd and 99.9th percentiles of chi-square with 5 degrees of freedom over 5 are 0.05 and 4.1; achieved 0.31 to
+    1.91 over seeds 11-13). The whole stated std is within 2x of the bound (achieved 1.17x to 1.74x): an
+    over-stated std fails as an under-stated one does (six levels once stated 28 mrad with 0.2 mrad of noise, and
+    5.6 rad where the amplitude changed with gray). With the ghost (6 % of the mirror beam's field, a cyclic error
+    of +-62 mrad) the cyclic correction must make the levels honest too; its noise part may reach 2x the bound
+    there (issue 12)."""
     kind = KINDS[name]
     draws = 16
     table, truth = analyze_framegen(tmp_path, kind, draws, np.random.default_rng(11))
@@ -224,5 +227,6 @@ def test_analyze_command_is_near_the_bound_with_honest_std(tmp_path, name):
     budget = json.loads((tmp_path / "out" / "analysis.json").read_text())["budget_per_level"]
     limit = 2.0 if name == "ghost" else 1.25  # issue 12: within 2x with a coherent ghost
     assert np.all(np.array([row["pixel_noise_rad"] for row in budget]) <= limit * bounds)
+    assert np.all(std <= 2.0 * bounds)
     offset = np.average(err, weights=std**-2)
-    assert np.sum(((err - offset) / std) ** 2) / (err.size - 1) < 3.0
+    assert 0.05 < np.sum(((err - offset) / std) ** 2) / (err.size - 1) < 3.0

@@ -494,7 +494,10 @@ def correction_lines(summary: dict) -> list[str]:
                  if d.get("scale_gray") is not None else " only (one reference gray)")
         lines.append(f"drift removed: piston ({1e3 * d['span_rad']:.1f} mrad span){scale}")
     c = summary.get("cyclic")
-    if c:
+    if c and c.get("assessed") is False:
+        lines.append("cyclic error: not assessed (the fringe amplitude changes from level to level beyond the leak "
+                     "model; see the warnings)")
+    elif c:
         lines.append(f"cyclic error: leak |L|/a = {with_std(c['ratio'], c['ratio_std'])} "
                      f"({1e3 * c['peak_error_rad']:.1f} mrad peak), correction {'applied' if c['applied'] else 'off'}")
     b = summary.get("budget")
