@@ -166,7 +166,7 @@ def _analyze(args, out: Path) -> int:
                "camera_full_scale_adu": full_scale, "versions": versions()}
     write_json(out / "analysis.json", summary)
     plot_curve(out / "phase.png", curve, args.method)
-    for w in warnings:
+    for w in summary["warnings"]:  # the curve's own (dips, a scale drift, a cyclic error not assessed) too
         print(f"fringecal: warning: {w}", file=sys.stderr)
     if args.json:
         print(json.dumps(summary, indent=2))
